@@ -1,0 +1,6 @@
+"""``python -m chargesim`` runs the command line."""
+import sys
+
+from .cli import main
+
+sys.exit(main())

@@ -1,0 +1,2 @@
+"""Program version, in one place."""
+__version__ = "0.1.0"

@@ -1,0 +1,260 @@
+"""Ewald summation for periodic (orthorhombic) systems.
+
+The conditionally convergent lattice sum of a periodic cell is split (see
+:mod:`._ewald_common`) into a real-space part over pairs closer than a cutoff
+r_c (erfc kernel, through the linked-cell list of :mod:`.cells`) and a
+reciprocal-space part summed exactly over the k-vectors with |k| <= k_c:
+
+    phi_rec(r) = 4 pi / V  sum_{k != 0}  exp(-k^2 / (4 alpha^2)) / k^2  Re[S(k) exp(-i k.r)],
+    S(k) = sum_j q_j exp(i k.r_j).
+
+Conducting ("tin-foil") surroundings by default; ``boundary="vacuum"`` adds
+the dipole surface term 2 pi |M|^2 / (3V). A net charge is neutralized by a
+uniform background (with a warning). ``slab=axis`` treats the system as
+periodic in the other two axes only, with the Yeh--Berkowitz correction; the
+box edge along that axis must then hold the layer *and an empty gap* (common
+practice: at least three times the layer thickness).
+
+The cost is O(N^(3/2)) at the best splitting parameter (the k-space sum runs
+over all particles for every k-vector), so for large N use :mod:`.mesh`; the
+front door's ``method="auto"`` switches at :data:`MESH_CROSSOVER`.
+
+Options (beyond the front door's common ones)
+---------------------------------------------
+box : 3 floats, m
+    Edge lengths of the periodic box (required).
+accuracy : float
+    Target rms relative error of the fields/forces (and the energy), default
+    1e-5: it sets alpha * r_c and k_c / alpha from the Kolafa--Perram error
+    estimates (see :func:`._ewald_common.accuracy_product`).
+slab : None or 0, 1, 2
+    Non-periodic axis (slab geometry), default None (periodic in 3-D).
+boundary : "tin-foil" or "vacuum"
+    Surroundings of the infinite lattice, default "tin-foil".
+alpha : float, 1/m, optional
+    Force the splitting parameter (the result must not depend on it: a
+    check used in the tests); the cutoffs then follow from ``accuracy``.
+real_cutoff : float, m, optional
+    Force the real-space cutoff (at most half the shortest edge).
+"""
+import math
+
+import numba
+import numpy as np
+
+from . import _ewald_common as common
+
+OPTIONS = dict(common.COMMON_OPTIONS)
+
+#: N above which the mesh method beats Ewald at the default accuracy: set from
+#: benchmarks/bench_periodic.py on the 2-core reference machine (see below).
+MESH_CROSSOVER = 2000
+
+# Real-space work per pair relative to reciprocal work per (particle, k) pair:
+# sets the splitting parameter at which the two parts cost the same
+# (alpha^6 ~ c_real pi^3 N / (2 c_k V^2)); measured, see the benchmark.
+_COST_RATIO = 3.0
+
+
+def kvectors(box, kc):
+    """The half-space of reciprocal vectors with 0 < |k| <= kc.
+
+    Parameters
+    ----------
+    box : ndarray (3,)
+        Edge lengths, m.
+    kc : float
+        Reciprocal cutoff, 1/m.
+
+    Returns
+    -------
+    n : ndarray (K, 3) of int64
+        Integer indices (k = 2 pi n / L), one of each +-k pair.
+    nmax : ndarray (3,) of int64
+        Largest |n| per axis.
+    """
+    nmax = np.floor(kc * box / (2.0 * math.pi)).astype(np.int64)
+    axes = [np.arange(-m, m + 1) for m in nmax]
+    n1, n2, n3 = np.meshgrid(*axes, indexing="ij")
+    n = np.stack((n1.ravel(), n2.ravel(), n3.ravel()), axis=1)
+    k = 2.0 * math.pi * n / box
+    k2 = np.einsum("ij,ij->i", k, k)
+    half = (n[:, 0] > 0) | ((n[:, 0] == 0) & ((n[:, 1] > 0) | ((n[:, 1] == 0) & (n[:, 2] > 0))))
+    keep = half & (k2 <= kc * kc)
+    return np.ascontiguousarray(n[keep]), nmax
+
+
+@numba.njit(cache=True, inline="always")
+def _phases(x, y, z, box, nmax, ex, ey, ez):
+    # exp(i 2 pi n x / L) for n = -nmax..nmax on each axis, by direct
+    # evaluation (a recurrence would accumulate rounding over many n)
+    tx = 2.0 * math.pi * x / box[0]
+    ty = 2.0 * math.pi * y / box[1]
+    tz = 2.0 * math.pi * z / box[2]
+    for n in range(-nmax[0], nmax[0] + 1):
+        ex[n + nmax[0]] = complex(math.cos(n * tx), math.sin(n * tx))
+    for n in range(-nmax[1], nmax[1] + 1):
+        ey[n + nmax[1]] = complex(math.cos(n * ty), math.sin(n * ty))
+    for n in range(-nmax[2], nmax[2] + 1):
+        ez[n + nmax[2]] = complex(math.cos(n * tz), math.sin(n * tz))
+
+
+@numba.njit(parallel=True, cache=True)
+def _structure_factor(px, py, pz, q, box, nvec, nmax, nchunks):
+    nk = nvec.shape[0]
+    n = px.size
+    partial = np.zeros((nchunks, nk), dtype=np.complex128)
+    # fixed chunks (not per-thread scheduling) so the sum order is fixed
+    for c in numba.prange(nchunks):
+        ex = np.empty(2 * nmax[0] + 1, dtype=np.complex128)
+        ey = np.empty(2 * nmax[1] + 1, dtype=np.complex128)
+        ez = np.empty(2 * nmax[2] + 1, dtype=np.complex128)
+        lo = c * n // nchunks
+        hi = (c + 1) * n // nchunks
+        for j in range(lo, hi):
+            _phases(px[j], py[j], pz[j], box, nmax, ex, ey, ez)
+            qj = q[j]
+            for k in range(nk):
+                partial[c, k] += qj * (ex[nvec[k, 0] + nmax[0]] * ey[nvec[k, 1] + nmax[1]]
+                                       * ez[nvec[k, 2] + nmax[2]])
+    s = np.zeros(nk, dtype=np.complex128)
+    for c in range(nchunks):
+        for k in range(nk):
+            s[k] += partial[c, k]
+    return s
+
+
+@numba.njit(parallel=True, cache=True)
+def _at_targets(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex_out, ey_out, ez_out, phi_out):
+    nk = nvec.shape[0]
+    for i in numba.prange(tx.size):
+        ex = np.empty(2 * nmax[0] + 1, dtype=np.complex128)
+        ey = np.empty(2 * nmax[1] + 1, dtype=np.complex128)
+        ez = np.empty(2 * nmax[2] + 1, dtype=np.complex128)
+        _phases(tx[i], ty[i], tz[i], box, nmax, ex, ey, ez)
+        p = 0.0
+        fx = 0.0
+        fy = 0.0
+        fz = 0.0
+        for k in range(nk):
+            e = ex[nvec[k, 0] + nmax[0]] * ey[nvec[k, 1] + nmax[1]] * ez[nvec[k, 2] + nmax[2]]
+            # S(k) exp(-i k.r) = S conj(e)
+            re = s[k].real * e.real + s[k].imag * e.imag
+            im = s[k].imag * e.real - s[k].real * e.imag
+            p += coef[k] * re
+            w = coef[k] * im
+            fx += w * kvec[k, 0]
+            fy += w * kvec[k, 1]
+            fz += w * kvec[k, 2]
+        phi_out[i] = p
+        # E = -grad phi = -(4 pi/V) sum A k Im[S exp(-i k.r)]
+        ex_out[i] = -fx
+        ey_out[i] = -fy
+        ez_out[i] = -fz
+
+
+def _soa(points):
+    t = np.ascontiguousarray(points.T)
+    return t[0], t[1], t[2]
+
+
+def reciprocal(sources, charges, targets, alpha, box, kc, *, need_field=True, need_potential=True):
+    """Reciprocal-space Ewald sums over the k-vectors with |k| <= kc.
+
+    Parameters
+    ----------
+    sources : ndarray (N, 3)
+        Source positions, m.
+    charges : ndarray (N,)
+        Charges, C.
+    targets : ndarray (M, 3) or None
+        Target points, m; None: at the sources (self Gaussian included: the
+        caller subtracts the self term).
+    alpha : float
+        Splitting parameter, 1/m.
+    box : ndarray (3,)
+        Edge lengths, m.
+    kc : float
+        Reciprocal cutoff, 1/m.
+
+    Returns
+    -------
+    field : ndarray (M, 3) or None
+        C/m^2.
+    potential : ndarray (M,) or None
+        C/m.
+    """
+    tgt = sources if targets is None else targets
+    m = tgt.shape[0]
+    nvec, nmax = kvectors(box, kc)
+    if nvec.shape[0] == 0:
+        return (np.zeros((m, 3)) if need_field else None), (np.zeros(m) if need_potential else None)
+    kvec = np.ascontiguousarray(2.0 * math.pi * nvec / box)
+    k2 = np.einsum("ij,ij->i", kvec, kvec)
+    volume = float(np.prod(box))
+    # 8 pi / V: the 4 pi / V of the full sum, doubled for the -k partner
+    coef = (8.0 * math.pi / volume) * np.exp(-k2 / (4.0 * alpha * alpha)) / k2
+    px, py, pz = _soa(sources)
+    nchunks = max(1, numba.get_num_threads())
+    s = _structure_factor(px, py, pz, charges, box, nvec, nmax, nchunks)
+    tx, ty, tz = (px, py, pz) if targets is None else _soa(targets)
+    ex = np.empty(m)
+    ey = np.empty(m)
+    ez = np.empty(m)
+    phi = np.empty(m)
+    _at_targets(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi)
+    field = np.stack((ex, ey, ez), axis=1) if need_field else None
+    return field, (phi if need_potential else None)
+
+
+def reciprocal_cutoff(st):
+    """The reciprocal cutoff k_c (1/m) for the accuracy of ``st``: exp(-k_c^2/(4 alpha^2)) matched to exp(-s^2)."""
+    return 2.0 * st.alpha * st.s
+
+
+def neighbours_for_balance(n, volume):
+    """Mean number of neighbours within r_c that balances real and k-space cost (see _COST_RATIO)."""
+    if n == 0:
+        return None
+    s = 3.0  # the balance hardly depends on s: both costs scale as s^3
+    alpha = (_COST_RATIO * math.pi ** 3 * n / 2.0) ** (1.0 / 6.0) / volume ** (1.0 / 3.0)
+    rc = s / alpha
+    return 4.0 / 3.0 * math.pi * rc ** 3 * n / volume
+
+
+def evaluate(sources, charges, targets, radii, *, need_field=True, need_potential=True, **options):
+    """Ewald sums of field and potential, without the factor k/eps_r.
+
+    Parameters
+    ----------
+    sources : ndarray, shape (N, 3)
+        Source positions, m.
+    charges : ndarray, shape (N,)
+        Charges, C.
+    targets : ndarray, shape (M, 3), or None
+        Target points, m; None: at each source, excluding itself but
+        including its periodic images.
+    radii : ndarray, shape (N,), or None
+        Particle radii, m (uniformly charged spheres for pairs closer than
+        a = max(R_i, R_j)); each must be below half the shortest box edge.
+    need_field, need_potential : bool
+        Which results to return.
+    **options
+        See the module docstring (``box`` is required).
+
+    Returns
+    -------
+    field : ndarray (M, 3) or None
+        Periodic field sum, C/m^2.
+    potential : ndarray (M,) or None
+        Ewald potential, C/m; at the particles (targets=None) it includes the
+        self-term correction, so 1/2 sum q_i phi_i is the lattice energy.
+    """
+    n = sources.shape[0]
+    volume = float(np.prod(common._checks.as_box(options["box"]))) if options.get("box") is not None else 1.0
+    st = common.setup(sources, charges, targets, radii, options,
+                      neighbours_per_particle=neighbours_for_balance(n, volume))
+    kc = reciprocal_cutoff(st)
+    return common.assemble(st, sources, charges, targets, radii, need_field, need_potential,
+                           lambda: reciprocal(sources, charges, targets, st.alpha, st.box, kc,
+                                              need_field=need_field, need_potential=need_potential))

@@ -50,25 +50,27 @@ Numba helpers (``njit``, callable from other kernels):
 ``wrap(c, n, length, periodic)``
     (cell coordinate in 0..n-1, shift in m): the image of the particles of
     an unwrapped cell c is at their stored coordinate **plus** the shift.
+``segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, shift)``
+    The cells within rc (<= the grid's cutoff) of a point as slot ranges
+    ``lo[g]:hi[g]`` with image shifts ``shift[g, :]`` (a run of cells along
+    z is one range; cells out of reach of the point are pruned); returns the
+    count. Buffers of length ``max_segments(reach)``, allocated once per chunk
+    of ``CHUNK`` points, not per point.
 
-The visiting pattern (each unwrapped neighbour cell visited once; with a run
-of cells along z taken as one slice)::
+The visiting pattern (as in this module's pair kernel)::
 
-    kx, ky, kz = locate(x, y, z, origin, width, shape, periodic)
-    lox, hix = axis_range(kx, shape[0], reach, periodic)   # and y, z
-    for cx in range(lox, hix + 1):
-        wx, shx = wrap(cx, shape[0], box[0], periodic)
-        for cy in range(loy, hiy + 1):
-            wy, shy = wrap(cy, shape[1], box[1], periodic)
-            row = (wx * shape[1] + wy) * shape[2]
-            cz = loz
-            while cz <= hiz:
-                wz, shz = wrap(cz, shape[2], box[2], periodic)
-                run = min(shape[2] - 1 - wz, hiz - cz)   # same shift along the run
-                for s in range(start[row + wz], start[row + wz + run + 1]):
-                    dx = x - (points[0, s] + shx)   # and y, z
-                    ...
-                cz += run + 1
+    for chunk in numba.prange((m + CHUNK - 1) // CHUNK):
+        lo = np.empty(max_segments(reach), np.int64); hi = ...; sh = np.empty((..., 3))
+        for t in range(chunk * CHUNK, min(m, (chunk + 1) * CHUNK)):
+            x, y, z = ...                      # wrap_point(...) first when periodic
+            nseg = segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, sh)
+            for g in range(nseg):
+                for s in range(lo[g], hi[g]):
+                    dx = x - (points[0, s] + sh[g, 0])   # and y, z
+                    ...                        # order[s] is the input index
+
+Each point's neighbours come in a fixed order whatever the thread count, so a
+sum per point in one thread is bitwise reproducible.
 
 In a periodic box a small grid (fewer than 2 reach + 1 cells on an axis)
 visits the same cell more than once, each time with a different shift: each
@@ -270,26 +272,102 @@ def build(positions, cutoff, box=None, *, reach=REACH):
 
 
 @numba.njit(inline="always")
-def _scan(x, y, z, i, points, order, start, shape, width, origin, box, periodic, reach,
-          rc2, out, base):
-    """Count (out is None-like: size 0) or store the j > i within the cutoff."""
-    kx, ky, kz = locate(x, y, z, origin, width, shape, periodic)
-    lox, hix = axis_range(kx, shape[0], reach, periodic)
-    loy, hiy = axis_range(ky, shape[1], reach, periodic)
-    loz, hiz = axis_range(kz, shape[2], reach, periodic)
-    px, py, pz = points[0], points[1], points[2]
-    store = out.size > 0
-    cnt = 0
+def max_segments(reach):
+    """Length of the ``segments`` buffers that suffices for any point."""
+    return (2 * reach + 1) * (2 * reach + 1) * (2 * reach + 2)
+
+
+@numba.njit(inline="always")
+def _gap(x, lo, hi):
+    """Distance from x to the interval [lo, hi] (0 inside)."""
+    return max(0.0, lo - x, x - hi)
+
+
+@numba.njit(inline="always")
+def _cell_span(x, ext, origin, width, n, periodic):
+    """Unwrapped cells along one axis touched by [x - ext, x + ext] (clipped when open)."""
+    # clamp in floating point first: a far point must not overflow int64
+    f_lo = min(max((x - ext - origin) / width, -4.0 - n), 2.0 * n + 4.0)
+    f_hi = min(max((x + ext - origin) / width, -4.0 - n), 2.0 * n + 4.0)
+    c_lo = int(math.floor(f_lo))
+    c_hi = int(math.floor(f_hi))
+    if not periodic:
+        c_lo = max(c_lo, 0)
+        c_hi = min(c_hi, n - 1)
+    return c_lo, c_hi
+
+
+@numba.njit(inline="always")
+def segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, shift):
+    """Slot ranges holding every source within ``rc`` of a point, with image shifts.
+
+    Fills ``lo[g]:hi[g]`` (slots) and ``shift[g, :]`` (m, added to the stored
+    coordinates) for g below the returned count, in a fixed order (x, then y,
+    then z cells). Only cells whose box comes within rc of the point are
+    listed (the corners of the stencil are pruned per point). Buffers: int64
+    (max_segments(reach),) twice and float64 (max_segments(reach), 3),
+    allocated once per chunk of points. The point must be wrapped into the box
+    first when periodic; rc must not exceed the grid's cutoff.
+    """
+    rc2 = rc * rc
+    nx, ny, nz = shape[0], shape[1], shape[2]
+    lox, hix = _cell_span(x, rc, origin[0], width[0], nx, periodic)
+    g = 0
     for cx in range(lox, hix + 1):
-        wx, shx = wrap(cx, shape[0], box[0], periodic)
+        gx = _gap(x, origin[0] + cx * width[0], origin[0] + (cx + 1) * width[0])
+        wx, shx = wrap(cx, nx, box[0], periodic)
+        ey = math.sqrt(max(rc2 - gx * gx, 0.0))
+        loy, hiy = _cell_span(y, ey, origin[1], width[1], ny, periodic)
         for cy in range(loy, hiy + 1):
-            wy, shy = wrap(cy, shape[1], box[1], periodic)
-            row = (wx * shape[1] + wy) * shape[2]
+            gy = _gap(y, origin[1] + cy * width[1], origin[1] + (cy + 1) * width[1])
+            r2 = gx * gx + gy * gy
+            if r2 >= rc2:
+                continue
+            wy, shy = wrap(cy, ny, box[1], periodic)
+            row = (wx * ny + wy) * nz
+            loz, hiz = _cell_span(z, math.sqrt(rc2 - r2), origin[2], width[2], nz, periodic)
             cz = loz
             while cz <= hiz:
-                wz, shz = wrap(cz, shape[2], box[2], periodic)
-                run = min(shape[2] - 1 - wz, hiz - cz)
-                for s in range(start[row + wz], start[row + wz + run + 1]):
+                wz, shz = wrap(cz, nz, box[2], periodic)
+                run = min(nz - 1 - wz, hiz - cz)  # the same shift along the run
+                b = start[row + wz]
+                e = start[row + wz + run + 1]
+                if e > b:
+                    lo[g] = b
+                    hi[g] = e
+                    shift[g, 0] = shx
+                    shift[g, 1] = shy
+                    shift[g, 2] = shz
+                    g += 1
+                cz += run + 1
+    return g
+
+
+#: Points handled per buffer allocation in the parallel kernels.
+CHUNK = 256
+
+
+@numba.njit(parallel=True, cache=True)
+def _pair_rows(points, order, start, shape, width, origin, box, periodic, reach, rc, offsets, jj):
+    """Count (jj empty) or store the neighbours j > i of every point i."""
+    n = order.size
+    rc2 = rc * rc
+    store = jj.size > 0
+    px, py, pz = points[0], points[1], points[2]
+    m = max_segments(reach)
+    for chunk in numba.prange((n + CHUNK - 1) // CHUNK):
+        lo = np.empty(m, np.int64)
+        hi = np.empty(m, np.int64)
+        sh = np.empty((m, 3))
+        for t in range(chunk * CHUNK, min(n, (chunk + 1) * CHUNK)):
+            i = order[t]
+            x, y, z = px[t], py[t], pz[t]
+            nseg = segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, sh)
+            b = offsets[i] if store else 0
+            cnt = 0
+            for g in range(nseg):
+                shx, shy, shz = sh[g, 0], sh[g, 1], sh[g, 2]
+                for s in range(lo[g], hi[g]):
                     j = order[s]
                     if j <= i:
                         continue
@@ -298,29 +376,13 @@ def _scan(x, y, z, i, points, order, start, shape, width, origin, box, periodic,
                     dz = z - (pz[s] + shz)
                     if dx * dx + dy * dy + dz * dz < rc2:
                         if store:
-                            out[base + cnt] = j
+                            jj[b + cnt] = j
                         cnt += 1
-                cz += run + 1
-    return cnt
-
-
-@numba.njit(parallel=True, cache=True)
-def _count_pairs(points, order, start, shape, width, origin, box, periodic, reach, rc2, counts):
-    none = np.empty(0, np.int64)
-    for s in numba.prange(order.size):
-        counts[order[s]] = _scan(points[0, s], points[1, s], points[2, s], order[s], points, order,
-                                 start, shape, width, origin, box, periodic, reach, rc2, none, 0)
-
-
-@numba.njit(parallel=True, cache=True)
-def _fill_pairs(points, order, start, shape, width, origin, box, periodic, reach, rc2, offsets, jj):
-    for s in numba.prange(order.size):
-        i = order[s]
-        b = offsets[i]
-        _scan(points[0, s], points[1, s], points[2, s], i, points, order,
-              start, shape, width, origin, box, periodic, reach, rc2, jj, b)
-        # neighbours arrive in cell order: sort each row for a stable output
-        jj[b:offsets[i + 1]] = np.sort(jj[b:offsets[i + 1]])
+            if store:
+                # neighbours arrive in cell order: sort each row for a stable output
+                jj[b:b + cnt] = np.sort(jj[b:b + cnt])
+            else:
+                offsets[i + 1] = cnt
 
 
 def pairs(positions, cutoff, box=None):
@@ -348,15 +410,15 @@ def pairs(positions, cutoff, box=None):
     """
     cells = build(positions, cutoff, box)
     n = cells.order.size
-    counts = np.zeros(n, np.int64)
     args = (cells.points, cells.order, cells.start, cells.shape, cells.width, cells.origin,
-            cells.box, cells.periodic, cells.reach, cells.cutoff ** 2)
-    if n:
-        _count_pairs(*args, counts)
+            cells.box, cells.periodic, cells.reach, cells.cutoff)
     offsets = np.zeros(n + 1, np.int64)
+    if n:
+        _pair_rows(*args, offsets, np.empty(0, np.int64))  # counts into offsets[1:]
+    counts = offsets[1:].copy()
     np.cumsum(counts, out=offsets[1:])
     jj = np.empty(int(offsets[-1]), np.int64)
     if jj.size:
-        _fill_pairs(*args, offsets, jj)
+        _pair_rows(*args, offsets, jj)
     ii = np.repeat(np.arange(n, dtype=np.int64), counts)
     return ii, jj

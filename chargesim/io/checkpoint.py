@@ -1,0 +1,169 @@
+"""Checkpoint files: the run loop's snapshot, stored exactly, written atomically.
+
+A snapshot is a nested structure of dicts (str keys), lists, tuples, numpy
+arrays, numpy scalars, Python ints (any size: the RNG state holds 128-bit
+integers), floats, bools, strings and None. :func:`load_checkpoint` returns an
+equal structure with the same types and bitwise-equal arrays.
+
+Layout of a checkpoint file (HDF5): root attributes ``format``
+(``"chargesim-checkpoint"``), ``format_version``, ``meta`` (JSON text, the
+writer's counters); the snapshot under ``/snapshot``. Each node carries
+``kind``: ``dict`` / ``list`` / ``tuple`` groups keep their keys in the JSON
+attribute ``keys`` and name their children ``0``, ``1``, ...; ``ndarray`` and
+``npscalar`` are datasets (exact dtype); ``json`` is a Python scalar in the
+attribute ``value`` as JSON text (Python's JSON writes floats by their
+shortest round-trip repr, so they come back bitwise; ints of any size exact).
+
+Atomicity: the file is written as ``PATH.tmp``, flushed, fsync'ed, then
+``os.replace``d onto ``PATH`` and the directory fsync'ed, so a reader sees
+the old checkpoint or the new one, never half of one.
+"""
+import json
+import os
+
+import h5py
+import numpy as np
+
+from .schema import CHECKPOINT_FORMAT, FORMAT_VERSION
+
+
+def _put(group, key, value):
+    if isinstance(value, dict):
+        sub = group.create_group(key)
+        sub.attrs["kind"] = "dict"
+        keys = list(value)
+        for k in keys:
+            if not isinstance(k, str):
+                raise ValueError(f"snapshot dict keys must be str, got {k!r}")
+        sub.attrs["keys"] = json.dumps(keys)
+        for i, k in enumerate(keys):
+            _put(sub, str(i), value[k])
+    elif isinstance(value, (list, tuple)):
+        sub = group.create_group(key)
+        sub.attrs["kind"] = "list" if isinstance(value, list) else "tuple"
+        sub.attrs["keys"] = json.dumps(len(value))
+        for i, v in enumerate(value):
+            _put(sub, str(i), v)
+    elif isinstance(value, np.ndarray):
+        if value.dtype.kind == "O":
+            raise ValueError(f"snapshot entry {group.name}/{key}: object arrays cannot be stored")
+        if value.dtype.kind == "U":
+            # numpy unicode -> UTF-32 bytes, exact, with the dtype kept
+            ds = group.create_dataset(key, data=value.view(np.uint32).reshape(value.shape + (-1,)))
+            ds.attrs["kind"] = "unicode"
+            ds.attrs["dtype"] = value.dtype.str
+        else:
+            ds = group.create_dataset(key, data=np.ascontiguousarray(value))
+            ds.attrs["kind"] = "ndarray"
+        ds.attrs["units"] = "see the run loop's snapshot"
+    elif isinstance(value, np.generic):
+        ds = group.create_dataset(key, data=value)
+        ds.attrs["kind"] = "npscalar"
+        ds.attrs["units"] = "see the run loop's snapshot"
+    elif value is None or isinstance(value, (bool, int, float, str)):
+        sub = group.create_group(key)
+        sub.attrs["kind"] = "json"
+        sub.attrs["value"] = json.dumps(value)
+    else:
+        raise ValueError(f"snapshot entry {group.name}/{key} has unsupported type {type(value).__name__}")
+
+
+def _get(node):
+    kind = node.attrs["kind"]
+    if isinstance(kind, bytes):
+        kind = kind.decode()
+    if kind == "dict":
+        keys = json.loads(node.attrs["keys"])
+        return {k: _get(node[str(i)]) for i, k in enumerate(keys)}
+    if kind in ("list", "tuple"):
+        n = json.loads(node.attrs["keys"])
+        items = [_get(node[str(i)]) for i in range(n)]
+        return items if kind == "list" else tuple(items)
+    if kind == "ndarray":
+        return node[()] if node.shape == () else node[...]
+    if kind == "unicode":
+        raw = node[...]
+        dt = np.dtype(node.attrs["dtype"])
+        return np.ascontiguousarray(raw).view(dt).reshape(raw.shape[:-1])
+    if kind == "npscalar":
+        return node[()]
+    if kind == "json":
+        return json.loads(node.attrs["value"])
+    raise ValueError(f"unknown checkpoint node kind {kind!r} at {node.name}")
+
+
+def _fsync_dir(path):
+    try:
+        fd = os.open(os.path.dirname(os.path.abspath(path)) or ".", os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def save_checkpoint(path, snapshot, meta=None):
+    """Write a snapshot to ``path`` atomically.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Checkpoint file to (re)place.
+    snapshot : dict
+        The nested state (see the module docstring for the types allowed).
+    meta : dict, optional
+        JSON-serialisable extras (the writer stores its row counts here).
+    """
+    if not isinstance(snapshot, dict):
+        raise ValueError(f"snapshot must be a dict, got {type(snapshot).__name__}")
+    path = os.fspath(path)
+    tmp = path + ".tmp"
+    with h5py.File(tmp, "w") as f:
+        f.attrs["format"] = CHECKPOINT_FORMAT
+        f.attrs["format_version"] = FORMAT_VERSION
+        f.attrs["meta"] = json.dumps(meta or {})
+        _put(f, "snapshot", snapshot)
+        f.flush()
+    with open(tmp, "rb+") as fh:
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+    _fsync_dir(path)
+
+
+def load_checkpoint(path):
+    """Read a checkpoint written by :func:`save_checkpoint`.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Checkpoint file.
+
+    Returns
+    -------
+    snapshot : dict
+        Equal to the snapshot saved (same types, bitwise-equal arrays).
+    meta : dict
+        The ``meta`` saved with it.
+
+    Raises
+    ------
+    ValueError
+        If the file is not a checkpoint of ours or cannot be read.
+    """
+    path = os.fspath(path)
+    try:
+        f = h5py.File(path, "r")
+    except OSError as exc:
+        raise ValueError(f"{path}: not a readable checkpoint file ({exc})") from None
+    with f:
+        fmt = f.attrs.get("format")
+        if isinstance(fmt, bytes):
+            fmt = fmt.decode()
+        if fmt != CHECKPOINT_FORMAT:
+            raise ValueError(f"{path}: not a chargesim checkpoint (format attribute {fmt!r})")
+        if "snapshot" not in f:
+            raise ValueError(f"{path}: checkpoint has no /snapshot")
+        return _get(f["snapshot"]), json.loads(f.attrs.get("meta", "{}"))

@@ -1,0 +1,500 @@
+"""The HDF5 recorder: one results file per run, crash safe, resumable.
+
+Crash safety (why it holds): the run writes into ``PATH.partial`` opened in
+HDF5's single-writer/multiple-reader (SWMR) mode. Every dataset the run
+appends to is created, resizable and chunked, before SWMR starts; SWMR then
+orders its writes so that the file on disk is a consistent HDF5 file at every
+moment (raw data before the metadata that points at it). After each frame,
+each batch of deposits or escapes, and each diagnostics row the writer calls
+``flush``; a killed process loses nothing the operating system already has,
+so SIGKILL keeps every flushed record. Within one frame the particle rows are
+written before the frame's index row, and readers count a frame (or an
+event) only when all its rows are visible, so a half-written frame is never
+read. Checkpoints go to their own file, atomically (temp + fsync + rename),
+after the partial file is flushed and fsync'ed, so a checkpoint never counts
+a record that is not on disk. ``finish`` writes ``/final`` and ``/summary``
+last (outside SWMR), renames the partial file onto ``PATH`` and writes the
+XDMF sidecar: a file under the final name is always a finished one.
+
+A killed partial file keeps HDF5's "open for writing" mark: h5py opens it
+with ``h5py.File(p, "r", swmr=True)``; :func:`chargesim.io.open_results`
+does that for you; resume rebuilds it.
+"""
+import datetime
+import json
+import os
+import warnings
+
+import h5py
+import numpy as np
+
+from .._version import __version__
+from . import schema as S
+from .checkpoint import save_checkpoint
+
+_FRAME_CHUNK = 16384
+_EVENT_CHUNK = 4096
+_DIAG_CHUNK = 1024
+
+
+def _now():
+    return datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds")
+
+
+def _fsync_path(path):
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def _compression_kw(compression):
+    if compression is None:
+        return {}
+    if compression == "gzip":
+        # level 1 + shuffle: most of gzip's gain on float64 at a fraction of its time
+        return {"compression": "gzip", "compression_opts": 1, "shuffle": True}
+    if compression == "lzf":
+        return {"compression": "lzf", "shuffle": True}
+    raise ValueError(f"compression must be 'gzip', 'lzf' or None, got {compression!r}")
+
+
+def _encode_names(values, what):
+    arr = np.asarray(values)
+    if arr.dtype.kind in "iu":
+        raise ValueError(f"{what} must hold names (str), got integers")
+    enc = np.char.encode(arr.astype(str), "utf-8")
+    if enc.size and max(len(b) for b in enc.tolist()) > S.NAME_BYTES:
+        raise ValueError(f"{what}: names are limited to {S.NAME_BYTES} UTF-8 bytes")
+    return enc.astype(S.name_dtype())  # UTF-8 tagged, as the datasets are
+
+
+class ResultsWriter:
+    """Record a run into one HDF5 file (implements the recorder protocol).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        Final results file (``.h5``). Work goes to ``path + ".partial"``;
+        checkpoints to ``path + ".checkpoint"``.
+    scenario_text : str
+        The scenario file's text, stored verbatim (resume compares it).
+    seed : int or None
+        Seed of the run's random generator (stored; None stored as -1).
+    overwrite : bool
+        Replace an existing ``path`` at ``finish``; else ``FileExistsError``.
+    compression : {"gzip", "lzf", None}
+        Filter of the appendable datasets.
+
+    Notes
+    -----
+    The full layout is in ``docs/results-format.md``.
+    """
+
+    def __init__(self, path, *, scenario_text, seed, overwrite=False, compression="gzip",
+                 _reopen=False):
+        self.path = os.fspath(path)
+        self.partial_path = self.path + S.PARTIAL_SUFFIX
+        self.checkpoint_path = self.path + S.CHECKPOINT_SUFFIX
+        if not isinstance(scenario_text, str):
+            raise ValueError(f"scenario_text must be str, got {type(scenario_text).__name__}")
+        self.scenario_text = scenario_text
+        self.seed = seed
+        self._ckw = _compression_kw(compression)
+        self._f = None
+        self._pending_fields = []
+        self._started = False
+        self._finished = False
+        self._counts = {"frames": 0, "frame_rows": 0, "deposits": 0, "escapes": 0, "diagnostics": 0}
+        self._diag_cols = {}
+        self._diag_width = 0
+        self._info = {}
+        if _reopen:
+            self._reopen_swmr()
+            return
+        if os.path.exists(self.path) and not overwrite:
+            raise FileExistsError(f"{self.path} exists (pass overwrite=True to replace it)")
+        self._create()
+
+    # -- file set-up ------------------------------------------------------------
+    def _create(self):
+        with h5py.File(self.partial_path, "w", libver="latest") as f:
+            f.attrs["format"] = S.FORMAT_NAME
+            f.attrs["format_version"] = S.FORMAT_VERSION
+            f.attrs["program"] = "chargesim"
+            f.attrs["program_version"] = __version__
+            f.attrs["created"] = _now()
+            f.attrs["scenario"] = self.scenario_text
+            f.attrs["seed"] = -1 if self.seed is None else int(self.seed)
+            f.attrs["run_info"] = "{}"
+            f.create_group("fields")
+
+    def _reopen_swmr(self):
+        """Open a (rebuilt, cleanly closed) partial file for appending in SWMR mode."""
+        f = h5py.File(self.partial_path, "r+", libver="latest")
+        self._info = json.loads(f.attrs.get("run_info", "{}"))
+        self._counts = {
+            "frames": f["frames/step"].shape[0],
+            "frame_rows": f["frames/id"].shape[0],
+            "deposits": f["deposits/id"].shape[0],
+            "escapes": f["escapes/id"].shape[0],
+            "diagnostics": f["diagnostics/step"].shape[0],
+        }
+        names = [n.decode() if isinstance(n, bytes) else n for n in f["diagnostics/names"][...]]
+        self._diag_width = len(names)
+        self._diag_cols = {n: i for i, n in enumerate(names) if n}
+        f.swmr_mode = True
+        self._f = f
+        self._started = True
+        self._resumed = True
+
+    def _rows(self, group, name, dtype, shape, units, chunk):
+        if dtype == "name":
+            dtype = S.name_dtype()
+        ds = group.create_dataset(name, shape=(0,) + shape, maxshape=(None,) + shape, dtype=dtype,
+                                  chunks=(chunk,) + shape, **self._ckw)
+        ds.attrs["units"] = units
+        return ds
+
+    def _make_layout(self, f, info):
+        fr = f.create_group("frames")
+        for name, (dt, unit) in S.FRAME_INDEX.items():
+            self._rows(fr, name, dt, (), unit, _DIAG_CHUNK)
+        for name, (dt, shp, unit) in S.FRAME_SCHEMA.items():
+            self._rows(fr, name, dt, shp, unit, _FRAME_CHUNK)
+        for gname in ("deposits", "escapes"):
+            g = f.create_group(gname)
+            for name, (dt, shp, unit) in S.EVENT_SCHEMA.items():
+                self._rows(g, name, dt, shp, unit, _EVENT_CHUNK)
+        dg = f.create_group("diagnostics")
+        self._rows(dg, "step", np.int64, (), "1", _DIAG_CHUNK)
+        self._rows(dg, "time", np.float64, (), "s", _DIAG_CHUNK)
+        declared = info.get("diagnostics") or {}
+        if not isinstance(declared, dict):
+            declared = {str(k): S.guess_unit(str(k)) for k in declared}
+        width = len(declared) + S.DIAGNOSTIC_COLUMNS
+        vals = dg.create_dataset("values", shape=(0, width), maxshape=(None, width), dtype=np.float64,
+                                 chunks=(_DIAG_CHUNK, width), **self._ckw)
+        vals.attrs["units"] = "per column: /diagnostics/units"
+        names = dg.create_dataset("names", shape=(width,), dtype=S.name_dtype())
+        names.attrs["units"] = "1"
+        units = dg.create_dataset("units", shape=(width,), dtype=S.name_dtype())
+        units.attrs["units"] = "1"
+        if declared:
+            names[: len(declared)] = _encode_names(list(declared), "diagnostics names")
+            units[: len(declared)] = _encode_names([str(u) for u in declared.values()], "diagnostics units")
+        self._diag_cols = {k: i for i, k in enumerate(declared)}
+        self._diag_width = width
+
+    # -- fields -----------------------------------------------------------------
+    def write_field(self, name, x, y, z, *, potential=None, field=None, attrs=None):
+        """Store a field grid under ``/fields/<name>/``.
+
+        Parameters
+        ----------
+        name : str
+            Grid name (a valid HDF5 name: no "/").
+        x, y, z : array_like, shapes (nx,), (ny,), (nz,)
+            Grid coordinates, m, strictly increasing.
+        potential : array_like, shape (nx, ny, nz), optional
+            Electric potential, V.
+        field : array_like, shape (nx, ny, nz, 3), optional
+            Electric field components, V/m.
+        attrs : dict, optional
+            Extra descriptive attributes (str or numbers) for the group.
+        """
+        if not isinstance(name, str) or not name or "/" in name or name in (".", ".."):
+            raise ValueError(f"name must be a non-empty str without '/', got {name!r}")
+        axes = []
+        for label, c in (("x", x), ("y", y), ("z", z)):
+            c = np.asarray(c, dtype=np.float64)
+            if c.ndim != 1 or c.size < 1:
+                raise ValueError(f"{label} must be a 1-D array of grid coordinates, got shape {c.shape}")
+            if not np.isfinite(c).all():
+                raise ValueError(f"{label} holds a non-finite value at index {int(np.flatnonzero(~np.isfinite(c))[0])}")
+            if c.size > 1 and not (np.diff(c) > 0).all():
+                raise ValueError(f"{label} must be strictly increasing; index {int(np.flatnonzero(np.diff(c) <= 0)[0]) + 1} is not")
+            axes.append(c)
+        shape = tuple(a.size for a in axes)
+        arrays = {}
+        if potential is not None:
+            p = np.asarray(potential, dtype=np.float64)
+            if p.shape != shape:
+                raise ValueError(f"potential must have shape {shape}, got {p.shape}")
+            arrays["potential"] = p
+        if field is not None:
+            e = np.asarray(field, dtype=np.float64)
+            if e.shape != shape + (3,):
+                raise ValueError(f"field must have shape {shape + (3,)}, got {e.shape}")
+            arrays["field"] = e
+        if not arrays:
+            raise ValueError("give potential, field or both")
+        item = (name, axes, arrays, dict(attrs or {}))
+        if self._f is not None:
+            self._pending_fields.append(item)  # no new objects while in SWMR mode
+        else:
+            with h5py.File(self.partial_path, "r+", libver="latest") as f:
+                self._store_field(f, *item)
+
+    @staticmethod
+    def _store_field(f, name, axes, arrays, attrs):
+        g = f.require_group("fields")
+        if name in g:
+            del g[name]
+        g = g.create_group(name)
+        for label, c in zip("xyz", axes):
+            ds = g.create_dataset(label, data=c)
+            ds.attrs["units"] = "m"
+        # stored with x fastest, (nz, ny, nx[, 3]), the order XDMF and VTK expect
+        if "potential" in arrays:
+            ds = g.create_dataset("potential", data=np.ascontiguousarray(arrays["potential"].transpose(2, 1, 0)),
+                                  compression="gzip", compression_opts=4, shuffle=True)
+            ds.attrs["units"] = "V"
+        if "field" in arrays:
+            ds = g.create_dataset("field", data=np.ascontiguousarray(arrays["field"].transpose(2, 1, 0, 3)),
+                                  compression="gzip", compression_opts=4, shuffle=True)
+            ds.attrs["units"] = "V/m"
+        g.attrs["axis_order"] = "z, y, x (x fastest)"
+        for k, v in attrs.items():
+            g.attrs[k] = v
+
+    # -- recorder protocol --------------------------------------------------------
+    def start(self, info):
+        """Lay out the file and enter SWMR mode (on resume: keep appending).
+
+        Parameters
+        ----------
+        info : dict
+            Description of the run (see ``chargesim.io`` for the keys used).
+        """
+        if self._finished:
+            raise RuntimeError(f"{self.path}: the writer has finished")
+        if self._started:
+            return  # resumed: the layout is there; the loop reports the same run
+        info = dict(info or {})
+        f = h5py.File(self.partial_path, "r+", libver="latest")
+        f.attrs["run_info"] = S.dumps_info(info)
+        self._make_layout(f, info)
+        f.flush()
+        f.swmr_mode = True
+        self._f = f
+        self._info = json.loads(f.attrs["run_info"])
+        self._started = True
+
+    def _append(self, ds, data, at):
+        n = data.shape[0]
+        ds.resize(at + n, axis=0)
+        ds[at:at + n] = data
+
+    def frame(self, step, time, state):
+        """Append a frame of the live particles (``state`` is read, not kept).
+
+        Parameters
+        ----------
+        step : int
+            Step number.
+        time : float
+            Simulated time, s.
+        state : ParticleState
+            Live state (attributes ``id``, ``position``, ... and ``alive``).
+        """
+        f = self._need()
+        alive = np.asarray(state.alive, dtype=bool)
+        sel = None if alive.all() else alive
+        at = self._counts["frame_rows"]
+        k = int(alive.sum())
+        g = f["frames"]
+        for name in S.FRAME_SCHEMA:
+            arr = np.asarray(getattr(state, name))
+            self._append(g[name], arr if sel is None else arr[sel], at)
+        i = self._counts["frames"]
+        # the index row last: a frame counts once its rows are all there
+        for name, value in (("step", step), ("time", time), ("offset", at), ("count", k)):
+            self._append(g[name], np.asarray([value]), i)
+        f.flush()
+        self._counts["frame_rows"] = at + k
+        self._counts["frames"] = i + 1
+
+    def _events(self, group, key, records):
+        f = self._need()
+        if not records:
+            return
+        n = int(np.asarray(records["id"]).shape[0])
+        if n == 0:
+            return
+        g = f[group]
+        at = self._counts[key]
+        missing = [k for k in S.EVENT_SCHEMA if k not in records]
+        if missing:
+            raise ValueError(f"{group} records lack {missing}")
+        for name, (dt, shp, _u) in S.EVENT_SCHEMA.items():
+            v = records[name]
+            if dt == "name":
+                v = _encode_names(v, f"{group} {name}")
+            else:
+                v = np.asarray(v, dtype=dt)
+            if v.shape != (n,) + shp:
+                raise ValueError(f"{group} records: {name} has shape {v.shape}, expected {(n,) + shp}")
+            self._append(g[name], v, at)
+        f.flush()
+        self._counts[key] = at + n
+
+    def deposits(self, records):
+        """Append deposit records (dict of arrays, ``EVENT_FIELDS`` keys)."""
+        self._events("deposits", "deposits", records)
+
+    def escapes(self, records):
+        """Append escape records (dict of arrays, ``EVENT_FIELDS`` keys)."""
+        self._events("escapes", "escapes", records)
+
+    def diagnostics(self, step, time, values):
+        """Append one row of scalar diagnostics.
+
+        Parameters
+        ----------
+        step : int
+            Step number.
+        time : float
+            Simulated time, s.
+        values : dict of str to float
+            Scalars, SI (units from ``info["diagnostics"]`` or by name).
+        """
+        f = self._need()
+        g = f["diagnostics"]
+        row = np.full(self._diag_width, np.nan)
+        for k, v in values.items():
+            col = self._diag_cols.get(k)
+            if col is None:
+                col = len(self._diag_cols)
+                if col >= self._diag_width:
+                    raise ValueError(f"more than {self._diag_width} diagnostics names; declare them in "
+                                     f"info['diagnostics'] (got {k!r})")
+                g["names"][col] = _encode_names([k], "diagnostics name")[0]
+                g["units"][col] = _encode_names([S.guess_unit(k)], "diagnostics unit")[0]
+                self._diag_cols[k] = col
+            row[col] = float(v)
+        i = self._counts["diagnostics"]
+        self._append(g["values"], row[None, :], i)
+        self._append(g["time"], np.asarray([time], dtype=np.float64), i)
+        self._append(g["step"], np.asarray([step], dtype=np.int64), i)
+        f.flush()
+        self._counts["diagnostics"] = i + 1
+
+    def checkpoint(self, snapshot):
+        """Save the loop's snapshot beside the file, atomically.
+
+        Parameters
+        ----------
+        snapshot : dict
+            Nested state from ``Simulation.snapshot()``.
+        """
+        f = self._need()
+        f.flush()
+        _fsync_path(self.partial_path)  # the records the checkpoint counts are on disk first
+        meta = {"counts": dict(self._counts), "scenario_sha256": _sha(self.scenario_text), "saved": _now()}
+        save_checkpoint(self.checkpoint_path, snapshot, meta)
+
+    def finish(self, summary):
+        """Write ``/final`` and ``/summary``, rename onto the final name, write XDMF.
+
+        Parameters
+        ----------
+        summary : dict
+            Run summary (masses kg, efficiencies, counts). ``summary["state"]``
+            (a ``ParticleState``) or ``summary["final"]`` (dict of arrays), if
+            given, becomes ``/final`` (else the last frame does).
+        """
+        if self._finished:
+            return
+        summary = dict(summary or {})
+        state = summary.pop("state", None)
+        final = summary.pop("final", None)
+        if self._f is not None:
+            self._f.flush()
+            self._f.close()
+            self._f = None
+        with h5py.File(self.partial_path, "r+", libver="latest") as f:
+            for item in self._pending_fields:
+                self._store_field(f, *item)
+            self._pending_fields = []
+            self._write_final(f, state, final)
+            self._write_summary(f, summary)
+            f.flush()
+        _fsync_path(self.partial_path)
+        os.replace(self.partial_path, self.path)
+        from .xdmf import write_xdmf
+
+        write_xdmf(self.path)
+        if os.path.exists(self.checkpoint_path):
+            os.remove(self.checkpoint_path)
+        self._finished = True
+
+    def close(self):
+        """Close the partial file without finishing (it stays resumable)."""
+        if self._f is not None:
+            self._f.flush()
+            self._f.close()
+            self._f = None
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+    # -- helpers -----------------------------------------------------------------
+    def _need(self):
+        if self._f is None:
+            raise RuntimeError("start(info) must be called before recording")
+        return self._f
+
+    def _write_final(self, f, state, final):
+        if "frames" not in f:
+            return  # a field-only file
+        if state is not None:
+            alive = np.asarray(state.alive, dtype=bool)
+            arrays = {k: np.asarray(getattr(state, k))[alive] for k in S.FINAL_SCHEMA}
+            source = "run state at finish"
+        elif final is not None:
+            arrays = {k: np.asarray(final[k]) for k in S.FINAL_SCHEMA if k in final}
+            source = "final records passed to finish"
+        else:
+            fr = f["frames"]
+            nf = fr["step"].shape[0]
+            if nf == 0:
+                return
+            o, c = int(fr["offset"][nf - 1]), int(fr["count"][nf - 1])
+            arrays = {k: fr[k][o:o + c] for k in S.FRAME_SCHEMA}
+            source = f"last frame (step {int(fr['step'][nf - 1])})"
+            warnings.warn(f"{self.path}: /final taken from the {source}; pass summary['state'] for the end state",
+                          stacklevel=3)
+        g = f.create_group("final")
+        g.attrs["source"] = source
+        for k, (dt, _shp, unit) in S.FINAL_SCHEMA.items():
+            if k not in arrays:
+                continue
+            ds = g.create_dataset(k, data=np.asarray(arrays[k], dtype=dt))
+            ds.attrs["units"] = unit
+
+    def _write_summary(self, f, summary):
+        g = f.create_group("summary")  # last: its presence means the run finished
+        units = {}
+        for k, v in summary.items():
+            if v is None:
+                continue
+            if isinstance(v, (dict, list, tuple)) and not (isinstance(v, (list, tuple)) and
+                                                           all(isinstance(e, (int, float)) for e in v)):
+                g.attrs[k] = S.dumps_info(v)
+                units[k] = "json"
+                continue
+            g.attrs[k] = v
+            units[k] = S.SUMMARY_UNITS.get(k, S.guess_unit(k) if isinstance(v, (int, float, np.number)) else "1")
+        g.attrs["units"] = json.dumps(units)
+        g.attrs["finished"] = _now()
+
+
+def _sha(text):
+    import hashlib
+
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()

@@ -1,0 +1,383 @@
+"""The domain (per-axis open, periodic, reflecting) and absorbing collectors.
+
+Every step moves each particle along a straight segment x0 -> x1. A collector
+reports, for each particle, the fraction s in [0, 1] of the segment at which
+the particle's surface first touches it (inf: no contact), and the contact
+point on the collector. An open face of the domain is an outlet: crossing it is
+an escape. The earliest event of each particle wins; survivors are then
+reflected or wrapped on the reflecting and periodic axes.
+
+A particle touching a collector at the start of a step (s = 0) deposits at once.
+"""
+import math
+
+import numpy as np
+
+_KINDS = ("open", "periodic", "reflecting")
+
+
+def _vector(value, name):
+    try:
+        v = np.asarray(value, dtype=np.float64).reshape(-1)
+    except (TypeError, ValueError):
+        raise ValueError(f"{name} must be three numbers, got {value!r}") from None
+    if v.shape != (3,) or not np.all(np.isfinite(v)):
+        raise ValueError(f"{name} must be three finite numbers, got {value!r}")
+    return v
+
+
+def _unit(value, name):
+    v = _vector(value, name)
+    n = float(np.linalg.norm(v))
+    if not n > 0:
+        raise ValueError(f"{name} must be a non-zero vector")
+    return v / n
+
+
+def _positive(value, name):
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise ValueError(f"{name} must be a positive number, got {value!r}") from None
+    if not math.isfinite(v) or v <= 0:
+        raise ValueError(f"{name} must be a finite positive number, got {value!r}")
+    return v
+
+
+def _name(value):
+    if not isinstance(value, str) or not value:
+        raise ValueError(f"name must be a non-empty string, got {value!r}")
+    return value
+
+
+def _area(value, default):
+    if value is None:
+        return default
+    return _positive(value, "area")
+
+
+class Collector:
+    """Base of the absorbing surfaces: the contract the run loop uses.
+
+    Subclasses set ``name`` (str) and ``area`` (m^2; inf when unbounded) and
+    fill :meth:`contact` and :meth:`signed_distance`.
+    """
+
+    name = ""
+    area = math.inf
+
+    def contact(self, x0, x1, radius):
+        """First contact along the segments x0 -> x1.
+
+        Parameters
+        ----------
+        x0, x1 : ndarray, shape (n, 3)
+            Segment ends, m.
+        radius : ndarray, shape (n,)
+            Particle radii, m.
+
+        Returns
+        -------
+        s : ndarray (n,)
+            Segment fraction of the first contact in [0, 1], inf for none.
+        point : ndarray (n, 3)
+            Contact point on the surface (meaningful where s is finite), m.
+        """
+        raise NotImplementedError
+
+    def signed_distance(self, x, radius):
+        """Gap between each particle's surface and the collector, m
+        (negative: overlapping or behind it)."""
+        raise NotImplementedError
+
+    def describe(self):
+        raise NotImplementedError
+
+
+class PlaneCollector(Collector):
+    """An absorbing plane or plate.
+
+    Parameters
+    ----------
+    name : str
+        Surface name used in deposit records.
+    point : array_like of 3 floats
+        A point on the plane, m.
+    normal : array_like of 3 floats
+        Normal pointing into the gas (any length > 0).
+    lo, hi : array_like of 3 floats, optional
+        Corners of an axis-aligned box bounding the plate, m: contacts outside
+        it pass by (a plate of finite size). None: unbounded plane.
+    area : float, optional
+        Collecting area, m^2, for deposition densities; by default the box's
+        in-plane extent for an axis-aligned normal, else inf.
+    """
+
+    def __init__(self, name, point, normal, lo=None, hi=None, area=None):
+        self.name = _name(name)
+        self.point = _vector(point, "point")
+        self.normal = _unit(normal, "normal")
+        self.lo = np.full(3, -np.inf) if lo is None else np.asarray(lo, dtype=np.float64).reshape(3)
+        self.hi = np.full(3, np.inf) if hi is None else np.asarray(hi, dtype=np.float64).reshape(3)
+        if np.any(np.isnan(self.lo)) or np.any(np.isnan(self.hi)) or np.any(self.lo > self.hi):
+            raise ValueError(f"lo must be <= hi on every axis, got lo={lo!r}, hi={hi!r}")
+        default = math.inf
+        axis = np.flatnonzero(np.abs(self.normal) == 1.0)
+        if axis.size == 1:
+            others = [a for a in range(3) if a != axis[0]]
+            ext = self.hi[others] - self.lo[others]
+            if np.all(np.isfinite(ext)):
+                default = float(ext[0] * ext[1])
+        self.area = _area(area, default)
+
+    def signed_distance(self, x, radius):
+        return (x - self.point) @ self.normal - radius
+
+    def contact(self, x0, x1, radius):
+        d0 = (x0 - self.point) @ self.normal - radius
+        d1 = (x1 - self.point) @ self.normal - radius
+        s = np.full(d0.shape, np.inf)
+        start = d0 <= 0
+        s[start] = 0.0
+        cross = (~start) & (d1 <= 0)
+        s[cross] = d0[cross] / (d0[cross] - d1[cross])
+        hit = np.isfinite(s)
+        xs = x0 + np.where(hit, s, 0.0)[:, None] * (x1 - x0)
+        point = xs - ((xs - self.point) @ self.normal)[:, None] * self.normal
+        inside = np.all((point >= self.lo) & (point <= self.hi), axis=1)
+        s[hit & ~inside] = np.inf
+        return s, point
+
+    def describe(self):
+        return {"kind": "plane", "name": self.name, "point": self.point.copy(), "normal": self.normal.copy(),
+                "lo": self.lo.copy(), "hi": self.hi.copy(), "area": self.area}
+
+
+def _enter_sphere(w0, dw, reff, inside):
+    """Segment fraction where |w0 + s dw| first reaches reff.
+
+    inside=True: the gas is inside (|w| < reff), contact on leaving;
+    inside=False: the gas is outside, contact on entering.
+    """
+    a = np.einsum("ij,ij->i", dw, dw)
+    b = np.einsum("ij,ij->i", w0, dw)
+    c = np.einsum("ij,ij->i", w0, w0) - reff * reff
+    s = np.full(c.shape, np.inf)
+    disc = b * b - a * c
+    safe_a = np.where(a > 0, a, 1.0)
+    root = np.sqrt(np.maximum(disc, 0.0))
+    if inside:
+        start = c >= 0
+        t = (-b + root) / safe_a
+        ok = (~start) & (a > 0) & (t <= 1.0)
+    else:
+        start = c <= 0
+        t = (-b - root) / safe_a
+        ok = (~start) & (a > 0) & (disc >= 0) & (t >= 0.0) & (t <= 1.0)
+    s[start] = 0.0
+    s[ok] = np.maximum(t[ok], 0.0)
+    return s
+
+
+class CylinderCollector(Collector):
+    """An absorbing circular cylinder: a tube wall (gas inside) or a wire.
+
+    Parameters
+    ----------
+    name : str
+        Surface name used in deposit records.
+    point : array_like of 3 floats
+        A point on the axis, m.
+    axis : array_like of 3 floats
+        Axis direction (any length > 0).
+    radius : float
+        Cylinder radius, m (> 0).
+    inside : bool
+        True: the gas is inside (tube wall); False: outside (wire, rod).
+    extent : (float, float), optional
+        Axial range (along ``axis`` from ``point``), m, of the collecting
+        part; None: infinite.
+    area : float, optional
+        Collecting area, m^2; default 2 pi R L for a finite extent, else inf.
+    """
+
+    def __init__(self, name, point, axis, radius, inside=True, extent=None, area=None):
+        self.name = _name(name)
+        self.point = _vector(point, "point")
+        self.axis = _unit(axis, "axis")
+        self.radius = _positive(radius, "radius")
+        self.inside = bool(inside)
+        if extent is None:
+            self.extent = (-math.inf, math.inf)
+        else:
+            lo, hi = (float(e) for e in extent)
+            if not lo < hi:
+                raise ValueError(f"extent must be (lo, hi) with lo < hi, got {extent!r}")
+            self.extent = (lo, hi)
+        length = self.extent[1] - self.extent[0]
+        self.area = _area(area, 2.0 * math.pi * self.radius * length if math.isfinite(length) else math.inf)
+
+    def _radial(self, x):
+        rel = x - self.point
+        z = rel @ self.axis
+        return rel - z[:, None] * self.axis, z
+
+    def signed_distance(self, x, radius):
+        w, _ = self._radial(x)
+        rho = np.sqrt(np.einsum("ij,ij->i", w, w))
+        return (self.radius - rho - radius) if self.inside else (rho - self.radius - radius)
+
+    def contact(self, x0, x1, radius):
+        w0, _ = self._radial(x0)
+        w1, _ = self._radial(x1)
+        reff = self.radius - radius if self.inside else self.radius + radius
+        s = _enter_sphere(w0, w1 - w0, reff, self.inside)
+        hit = np.isfinite(s)
+        xs = x0 + np.where(hit, s, 0.0)[:, None] * (x1 - x0)
+        w, z = self._radial(xs)
+        rho = np.sqrt(np.einsum("ij,ij->i", w, w))
+        unit = w / np.where(rho > 0, rho, 1.0)[:, None]
+        point = self.point + z[:, None] * self.axis + self.radius * unit
+        s[hit & ((z < self.extent[0]) | (z > self.extent[1]))] = np.inf
+        return s, point
+
+    def describe(self):
+        return {"kind": "cylinder", "name": self.name, "point": self.point.copy(), "axis": self.axis.copy(),
+                "radius": self.radius, "inside": int(self.inside), "extent": np.array(self.extent),
+                "area": self.area}
+
+
+class SphereCollector(Collector):
+    """An absorbing sphere (a grounded ball, a spherical workpiece).
+
+    Parameters
+    ----------
+    name : str
+        Surface name used in deposit records.
+    center : array_like of 3 floats
+        Centre, m.
+    radius : float
+        Radius, m (> 0).
+    inside : bool
+        False (default): the gas is outside; True: inside a spherical vessel.
+    """
+
+    def __init__(self, name, center, radius, inside=False):
+        self.name = _name(name)
+        self.center = _vector(center, "center")
+        self.radius = _positive(radius, "radius")
+        self.inside = bool(inside)
+        self.area = 4.0 * math.pi * self.radius ** 2
+
+    def signed_distance(self, x, radius):
+        rho = np.linalg.norm(x - self.center, axis=1)
+        return (self.radius - rho - radius) if self.inside else (rho - self.radius - radius)
+
+    def contact(self, x0, x1, radius):
+        w0 = x0 - self.center
+        reff = self.radius - radius if self.inside else self.radius + radius
+        s = _enter_sphere(w0, x1 - x0, reff, self.inside)
+        xs = x0 + np.where(np.isfinite(s), s, 0.0)[:, None] * (x1 - x0) - self.center
+        rho = np.linalg.norm(xs, axis=1)
+        point = self.center + self.radius * xs / np.where(rho > 0, rho, 1.0)[:, None]
+        return s, point
+
+    def describe(self):
+        return {"kind": "sphere", "name": self.name, "center": self.center.copy(), "radius": self.radius,
+                "inside": int(self.inside), "area": self.area}
+
+
+class Domain:
+    """The box the particles live in, with a boundary kind per axis.
+
+    Parameters
+    ----------
+    lo, hi : array_like of 3 floats
+        Box corners, m (lo < hi; +-inf allowed on open axes).
+    kinds : sequence of 3 str
+        Per axis "open" (crossing a finite face is an escape through an
+        outlet), "periodic" (wrap) or "reflecting" (mirror the position, flip
+        the velocity component). Periodic and reflecting axes need finite
+        bounds.
+    outlet_names : dict, optional
+        Names of the open faces, keys "x-", "x+", "y-", ... (the defaults).
+    """
+
+    def __init__(self, lo=(-math.inf,) * 3, hi=(math.inf,) * 3, kinds=("open",) * 3, outlet_names=None):
+        self.lo = np.asarray(lo, dtype=np.float64).reshape(-1)
+        self.hi = np.asarray(hi, dtype=np.float64).reshape(-1)
+        if self.lo.shape != (3,) or self.hi.shape != (3,):
+            raise ValueError("lo and hi must be three numbers each")
+        if np.any(np.isnan(self.lo)) or np.any(np.isnan(self.hi)) or np.any(~(self.lo < self.hi)):
+            raise ValueError(f"lo must be < hi on every axis, got lo={lo!r}, hi={hi!r}")
+        if isinstance(kinds, str):
+            kinds = (kinds,) * 3
+        kinds = tuple(kinds)
+        if len(kinds) != 3 or any(k not in _KINDS for k in kinds):
+            raise ValueError(f"kinds must be three of {_KINDS}, got {kinds!r}")
+        self.kinds = kinds
+        for a, k in enumerate(kinds):
+            if k != "open" and not (math.isfinite(self.lo[a]) and math.isfinite(self.hi[a])):
+                raise ValueError(f"kinds[{a}] = {k!r} needs finite lo and hi on axis {a}")
+        names = {f"{c}{s}": f"{c}{s}" for c in "xyz" for s in "-+"}
+        if outlet_names:
+            unknown = set(outlet_names) - set(names)
+            if unknown:
+                raise ValueError(f"outlet_names keys must be among {sorted(names)}, got {sorted(unknown)}")
+            names.update({k: str(v) for k, v in outlet_names.items()})
+        # the outlets: (axis, side, name) for finite open faces
+        self.outlets = []
+        for a, k in enumerate(kinds):
+            if k != "open":
+                continue
+            if math.isfinite(self.lo[a]):
+                self.outlets.append((a, -1, names[f"{'xyz'[a]}-"]))
+            if math.isfinite(self.hi[a]):
+                self.outlets.append((a, +1, names[f"{'xyz'[a]}+"]))
+
+    @property
+    def box(self):
+        """Edge lengths, m (inf on unbounded axes)."""
+        return self.hi - self.lo
+
+    def crossing(self, x0, x1, axis, side):
+        """Segment fraction where the centre crosses an open face (inf: none)."""
+        bound = self.hi[axis] if side > 0 else self.lo[axis]
+        a0, a1 = x0[:, axis], x1[:, axis]
+        beyond = (a1 > bound) if side > 0 else (a1 < bound)
+        s = np.full(a0.shape, np.inf)
+        den = a1 - a0
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t = np.where(den != 0, (bound - a0) / np.where(den != 0, den, 1.0), 0.0)
+        s[beyond] = np.clip(t[beyond], 0.0, 1.0)
+        return s
+
+    def fold(self, x, v):
+        """Reflect and wrap positions (and flip velocities) in place."""
+        for a, k in enumerate(self.kinds):
+            if k == "open":
+                continue
+            lo, hi = self.lo[a], self.hi[a]
+            length = hi - lo
+            col = x[:, a]
+            if k == "periodic":
+                out = (col < lo) | (col >= hi)
+                if out.any():
+                    col[out] = lo + np.mod(col[out] - lo, length)
+                    # mod can round up to the length itself
+                    col[col >= hi] = lo
+            else:
+                out = (col < lo) | (col > hi)
+                if out.any():
+                    # fold onto [lo, hi] with the period 2 L of the mirror images
+                    u = np.mod(col[out] - lo, 2.0 * length)
+                    flip = u > length
+                    col[out] = lo + np.where(flip, 2.0 * length - u, u)
+                    # an odd number of mirror images (u > L) flips the velocity
+                    idx = np.flatnonzero(out)[flip]
+                    v[idx, a] = -v[idx, a]
+        return x, v
+
+    def describe(self):
+        return {"lo": self.lo.copy(), "hi": self.hi.copy(), "kinds": ",".join(self.kinds),
+                "outlets": ",".join(o[2] for o in self.outlets)}

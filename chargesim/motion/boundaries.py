@@ -90,6 +90,25 @@ class Collector:
         (negative: overlapping or behind it)."""
         raise NotImplementedError
 
+    def normal(self, x):
+        """Unit normal of the surface nearest each point, into the gas, (n, 3)."""
+        raise NotImplementedError
+
+    def mirror(self, x, radius):
+        """Points moved back across the contact surface (d -> -d) where the
+        particle overlaps the collector; unchanged elsewhere.
+
+        Used for random walks that must not deposit (turbulent mixing): the
+        mirror image keeps a uniform density uniform near the wall.
+        """
+        d = self.signed_distance(x, radius)
+        over = d < 0
+        if not over.any():
+            return x
+        y = x.copy()
+        y[over] -= 2.0 * d[over, None] * self.normal(x[over])
+        return y
+
     def describe(self):
         raise NotImplementedError
 
@@ -116,13 +135,14 @@ class PlaneCollector(Collector):
     def __init__(self, name, point, normal, lo=None, hi=None, area=None):
         self.name = _name(name)
         self.point = _vector(point, "point")
-        self.normal = _unit(normal, "normal")
+        self.unit_normal = _unit(normal, "normal")
         self.lo = np.full(3, -np.inf) if lo is None else np.asarray(lo, dtype=np.float64).reshape(3)
         self.hi = np.full(3, np.inf) if hi is None else np.asarray(hi, dtype=np.float64).reshape(3)
         if np.any(np.isnan(self.lo)) or np.any(np.isnan(self.hi)) or np.any(self.lo > self.hi):
             raise ValueError(f"lo must be <= hi on every axis, got lo={lo!r}, hi={hi!r}")
+        self._bounded = bool(np.any(np.isfinite(self.lo)) or np.any(np.isfinite(self.hi)))
         default = math.inf
-        axis = np.flatnonzero(np.abs(self.normal) == 1.0)
+        axis = np.flatnonzero(np.abs(self.unit_normal) == 1.0)
         if axis.size == 1:
             others = [a for a in range(3) if a != axis[0]]
             ext = self.hi[others] - self.lo[others]
@@ -131,11 +151,19 @@ class PlaneCollector(Collector):
         self.area = _area(area, default)
 
     def signed_distance(self, x, radius):
-        return (x - self.point) @ self.normal - radius
+        d = (x - self.point) @ self.unit_normal
+        if self._bounded:
+            proj = x - d[:, None] * self.unit_normal
+            d = np.where(np.all((proj >= self.lo) & (proj <= self.hi), axis=1), d, np.inf)
+        return d - radius
+
+    def normal(self, x):
+        return np.broadcast_to(self.unit_normal, x.shape)
 
     def contact(self, x0, x1, radius):
-        d0 = (x0 - self.point) @ self.normal - radius
-        d1 = (x1 - self.point) @ self.normal - radius
+        n = self.unit_normal
+        d0 = (x0 - self.point) @ n - radius
+        d1 = (x1 - self.point) @ n - radius
         s = np.full(d0.shape, np.inf)
         start = d0 <= 0
         s[start] = 0.0
@@ -143,13 +171,13 @@ class PlaneCollector(Collector):
         s[cross] = d0[cross] / (d0[cross] - d1[cross])
         hit = np.isfinite(s)
         xs = x0 + np.where(hit, s, 0.0)[:, None] * (x1 - x0)
-        point = xs - ((xs - self.point) @ self.normal)[:, None] * self.normal
+        point = xs - ((xs - self.point) @ n)[:, None] * n
         inside = np.all((point >= self.lo) & (point <= self.hi), axis=1)
         s[hit & ~inside] = np.inf
         return s, point
 
     def describe(self):
-        return {"kind": "plane", "name": self.name, "point": self.point.copy(), "normal": self.normal.copy(),
+        return {"kind": "plane", "name": self.name, "point": self.point.copy(), "normal": self.unit_normal.copy(),
                 "lo": self.lo.copy(), "hi": self.hi.copy(), "area": self.area}
 
 
@@ -227,6 +255,12 @@ class CylinderCollector(Collector):
         rho = np.sqrt(np.einsum("ij,ij->i", w, w))
         return (self.radius - rho - radius) if self.inside else (rho - self.radius - radius)
 
+    def normal(self, x):
+        w, _ = self._radial(x)
+        rho = np.sqrt(np.einsum("ij,ij->i", w, w))
+        unit = w / np.where(rho > 0, rho, 1.0)[:, None]
+        return -unit if self.inside else unit
+
     def contact(self, x0, x1, radius):
         w0, _ = self._radial(x0)
         w1, _ = self._radial(x1)
@@ -272,6 +306,12 @@ class SphereCollector(Collector):
     def signed_distance(self, x, radius):
         rho = np.linalg.norm(x - self.center, axis=1)
         return (self.radius - rho - radius) if self.inside else (rho - self.radius - radius)
+
+    def normal(self, x):
+        w = x - self.center
+        rho = np.linalg.norm(w, axis=1)
+        unit = w / np.where(rho > 0, rho, 1.0)[:, None]
+        return -unit if self.inside else unit
 
     def contact(self, x0, x1, radius):
         w0 = x0 - self.center

@@ -283,21 +283,19 @@ class Simulation:
         if np.any(sys_.eddy_diffusivity > 0):
             dx = np.sqrt(2.0 * sys_.eddy_diffusivity * dt) * rng.standard_normal((n, 3))
             if sys_.collectors:
+                # mixing does not carry particles into a collector: a
+                # displacement that would is mirrored at the surface (which
+                # keeps a well-mixed density uniform up to the wall), and
+                # dropped if the mirror image overlaps a collector too
                 r = s.radius
-
-                def blocked(y):
-                    bad = np.zeros(n, dtype=bool)
-                    for c in sys_.collectors:
-                        bad |= c.signed_distance(y, r) < 0
-                    return bad
-
-                # mixing does not carry particles into a collector: reflect the
-                # displacement, or drop it if that is blocked too
-                bad = blocked(x + dx)
-                if bad.any():
-                    dx[bad] = -dx[bad]
-                    still = bad & blocked(x + dx)
-                    dx[still] = 0.0
+                y = x + dx
+                for c in sys_.collectors:
+                    y = c.mirror(y, r)
+                bad = np.zeros(n, dtype=bool)
+                for c in sys_.collectors:
+                    bad |= c.signed_distance(y, r) < 0
+                y[bad] = x[bad]
+                dx = y - x
             x += dx
 
     def _boundaries(self, x0, dt):

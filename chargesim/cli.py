@@ -41,7 +41,7 @@ def _add_common(p):
     p.add_argument("--debug", action="store_true", help="show the traceback of an unexpected error")
 
 
-def _parser():
+def _parser(wanted=None):
     top = _Parser(
         prog="chargesim",
         description="Point-charge electrostatics and charged-particle motion: precipitators, "
@@ -91,17 +91,32 @@ def _parser():
 
     for name, (module, help_text) in _DELEGATED.items():
         p = sub.add_parser(name, help=help_text, description=help_text.capitalize() + ".", add_help=True)
+        if name != wanted:
+            continue  # the module is imported only for its own command (quick start, no hard dependency)
         try:
             mod = importlib.import_module(module)
-        except ImportError:
-            p.set_defaults(_missing=module)
+            if not (callable(getattr(mod, "add_arguments", None)) and callable(getattr(mod, "command", None))):
+                raise ImportError(f"{module} provides no add_arguments/command")
+            mod.add_arguments(p)
+        except Exception as exc:  # not importable or not finished: the command says so
+            log.debug("cannot set up %s", module, exc_info=True)
+            p.set_defaults(_missing=f"{module}: {type(exc).__name__}: {exc}")
             p.add_argument("rest", nargs=argparse.REMAINDER, help=argparse.SUPPRESS)
         else:
-            mod.add_arguments(p)
             p.set_defaults(_delegate=mod)
         if not any(a.dest == "verbose" for a in p._actions):
             _add_common(p)
     return top
+
+
+def _command_in(argv):
+    """The first word of ``argv`` that is not an option (the subcommand), or None."""
+    for a in argv:
+        if not a.startswith("-"):
+            return a
+        if a == "--":
+            return None
+    return None
 
 
 def _setup_logging(verbose):
@@ -126,7 +141,8 @@ def _err(message):
 
 def main(argv=None):
     """Run the command line; returns the exit code (0, 1 or 2)."""
-    parser = _parser()
+    argv = sys.argv[1:] if argv is None else list(argv)
+    parser = _parser(_command_in(argv))
     try:
         args = parser.parse_args(argv)
     except SystemExit as exc:  # --help, --version (0) and usage errors (2)
@@ -140,7 +156,7 @@ def main(argv=None):
     try:
         if getattr(args, "_missing", None):
             _err(f"the '{args.command}' command is not available in this installation "
-                 f"(module {args._missing} cannot be imported)")
+                 f"({args._missing})")
             return 1
         if getattr(args, "_delegate", None) is not None:
             return int(args._delegate.command(args))

@@ -82,26 +82,18 @@ def _electrodes(d, lo, hi):
                 raise Fail(f"{path}.upper", f"{_fmt(e['upper'])} m must be greater than lower = {_fmt(e['lower'])} m "
                                             "(the plates would touch or cross: overlapping electrodes)")
         elif t == "wire_plate":
-            pa, wa = _axis(e["plate_axis"]), _axis(e["wire_axis"])
-            if pa == wa:
-                raise Fail(f"{path}.wire_axis", f"{e['wire_axis']!r} is the plate axis too; the wires run "
-                                                "parallel to the plates, along another axis")
             p0, p1 = sorted(e["plates"])
             if not p1 > p0:
                 raise Fail(f"{path}.plates", "the two plates are at the same place (overlapping electrodes)")
-            off = 0.5 * (p0 + p1) if e["wire_offset"] is None else e["wire_offset"]
             r = e["wire_radius"]
-            if not (p0 + r < off < p1 - r):
-                key = "wire_offset" if e["wire_offset"] is not None else "wire_radius"
-                raise Fail(f"{path}.{key}", f"the wires (offset {_fmt(off)} m, radius {_fmt(r)} m) touch or cross a "
-                                            f"plate at {_fmt(p0)} or {_fmt(p1)} m (overlapping electrodes)")
-            xs = np.sort(e["wires"])
-            if xs.size > 1 and np.min(np.diff(xs)) <= 2 * r:
-                raise Fail(f"{path}.wires", f"two wires are closer than one wire diameter ({_fmt(2 * r)} m): "
-                                            "overlapping electrodes")
-            fa = 3 - pa - wa
-            for w in e["wires"]:
-                wires.append((path, wa, {pa: off, fa: w}, r))
+            if not r < 0.5 * (p1 - p0):
+                raise Fail(f"{path}.wire_radius", f"{_fmt(r)} m: the wires midway would touch the plates "
+                                                  f"{_fmt(p1 - p0)} m apart (overlapping electrodes)")
+            if e["n_wires"] > 1 and not e["wire_spacing"] > 2 * r:
+                raise Fail(f"{path}.wire_spacing", f"{_fmt(e['wire_spacing'])} m is not more than one wire diameter "
+                                                   f"({_fmt(2 * r)} m): the wires overlap (overlapping electrodes)")
+            for w in range(e["n_wires"]):
+                wires.append((path, 2, {0: 0.5 * (p0 + p1), 1: e["first_wire"] + w * e["wire_spacing"]}, r))
         elif t == "wire_in_tube":
             if not e["tube_radius"] > e["wire_radius"]:
                 raise Fail(f"{path}.tube_radius", f"{_fmt(e['tube_radius'])} m must be greater than wire_radius = "
@@ -160,10 +152,13 @@ def _excluded(d, p):
             if not (e["lower"] <= p[k] <= e["upper"]):
                 return f"outside the gap of the plates of electrodes[{i}]"
         elif e["type"] == "wire_plate":
-            pa = _axis(e["plate_axis"])
             p0, p1 = sorted(e["plates"])
-            if not (p0 <= p[pa] <= p1):
+            if not (p0 <= p[0] <= p1):
                 return f"outside the gap of the plates of electrodes[{i}]"
+            xm, r = 0.5 * (p0 + p1), e["wire_radius"]
+            for w in range(e["n_wires"]):
+                if math.hypot(p[0] - xm, p[1] - (e["first_wire"] + w * e["wire_spacing"])) < r:
+                    return f"inside a wire of electrodes[{i}]"
         elif e["type"] == "wire_in_tube":
             k = _axis(e["axis"])
             r = math.hypot(*[p[m] - e["center"][m] for m in range(3) if m != k])

@@ -99,15 +99,14 @@ ELECTRODE = Table(
             "voltage_lower": Quantity("Potential of the lower plate.", "V", 0.0),
             "voltage_upper": Quantity("Potential of the upper plate.", "V"),
         }),
-        "wire_plate": ("A row of corona wires between two grounded plates (plate-type precipitator duct): the "
-                       "wires run along `wire_axis`, the plates are normal to `plate_axis`.", {
-            "plate_axis": Choice("Axis normal to the plates.", AXES, "y"),
-            "wire_axis": Choice("Axis the wires run along.", AXES, "z"),
-            "plates": QuantityList("Coordinates of the two plates along `plate_axis`.", "m", min_len=2, max_len=2),
-            "wires": QuantityList("Coordinates of the wires along the third axis (the flow direction).", "m",
-                                  min_len=1, max_len=1000),
-            "wire_offset": Quantity("Coordinate of the wire row along `plate_axis`.", "m", None,
-                                    default_doc="midway between the plates"),
+        "wire_plate": ("A row of corona wires midway between two grounded plates (one gas passage of a "
+                       "plate-type precipitator). Fixed frame: the plates are normal to x, the wires run along z, "
+                       "the row (and the gas flow) runs along y.", {
+            "plates": QuantityList("x coordinates of the two grounded plates.", "m", min_len=2, max_len=2),
+            "first_wire": Quantity("y coordinate of the first wire.", "m"),
+            "wire_spacing": Quantity("Distance between neighbouring wires along y.", "m", **_POSITIVE,
+                                     why="wires are apart"),
+            "n_wires": Integer("Number of wires in the row.", 1, lo=1, hi=200),
             "wire_radius": Quantity("Radius of each wire.", "m", **_POSITIVE, why="a wire has a positive radius"),
             "voltage": Quantity("Potential of the wires (the plates are grounded).", "V"),
         }),
@@ -274,6 +273,10 @@ COULOMB = Table(
                              why="a relative accuracy lies between 0 and 1"),
         "cutoff": Quantity("Interaction cutoff distance (method `cutoff`).", "m", None, **_POSITIVE,
                            why="a cutoff is a positive distance"),
+        "softening": Quantity("One softening radius for all particles: they interact as charged spheres of "
+                              "this radius when closer (useful when a simulated particle stands for a cloud "
+                              "of real ones).", "m", None, **_POSITIVE, why="a radius is positive",
+                              default_doc="each particle's own radius"),
     },
 )
 

@@ -85,6 +85,14 @@ def test_charged_ungrounded_part_raises_ignition_finding():
     assert hazards.assess(conductors=[by_q], atmosphere="toluene")[0].value == pytest.approx(u, rel=1e-12)
 
 
+def test_given_ignition_energy():
+    part = hazards.Conductor("drum", capacitance=200e-12, voltage=5e3)  # 2.5 mJ
+    assert [f.kind for f in hazards.assess(conductors=[part], min_ignition_energy=1e-3)] == ["ignition"]
+    assert hazards.assess(conductors=[part], min_ignition_energy=5e-3) == []
+    with pytest.raises(ValueError, match="not both"):
+        hazards.assess(conductors=[part], atmosphere="hexane", min_ignition_energy=1e-3)
+
+
 def test_person_at_potential():
     found = hazards.assess(conductors=[{"name": "operator", "voltage": 10e3, "person": True}], atmosphere="propane")
     kinds = sorted(f.kind for f in found)

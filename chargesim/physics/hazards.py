@@ -387,6 +387,7 @@ def assess(
     pressure=STANDARD_PRESSURE,
     margin=DEFAULT_MARGIN,
     person_voltage_limit=PERSON_VOLTAGE_LIMIT,
+    min_ignition_energy=None,
 ):
     """Safety findings of a design: fields against breakdown, conductors against ignition.
 
@@ -411,6 +412,9 @@ def assess(
         0 < margin <= 1.
     person_voltage_limit : float
         A person above this potential magnitude is reported, V.
+    min_ignition_energy : float, optional
+        A minimum ignition energy given directly, J (> 0), for an atmosphere
+        not in the table; not together with ``atmosphere``.
 
     Returns
     -------
@@ -421,7 +425,13 @@ def assess(
     if not (0.0 < m <= 1.0):
         raise ValueError(f"margin must be in (0, 1], got {margin!r}")
     eb = float(breakdown_field(temperature, pressure))
-    mie = None if atmosphere is None else _lookup(atmosphere)
+    if min_ignition_energy is not None:
+        if atmosphere is not None:
+            raise ValueError("give atmosphere or min_ignition_energy, not both")
+        mie = Atmosphere("the given atmosphere", float(_array(min_ignition_energy, "min_ignition_energy")),
+                         "given", "given by the user")
+    else:
+        mie = None if atmosphere is None else _lookup(atmosphere)
     out = []
     for i, item in enumerate(fields):
         name, e = _as_field(item, i)

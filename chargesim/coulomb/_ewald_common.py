@@ -184,8 +184,8 @@ def setup(sources, charges, targets, radii, options, *, neighbours_per_particle)
         if extent >= box[slab]:
             raise ValueError(
                 f"slab={slab}: the particles span {extent:g} m along axis {slab}, not less than box[{slab}] = "
-                f"{box[slab]:g} m; the box must hold the layer plus an empty gap (common practice: "
-                f"box[{slab}] >= 3 x the layer thickness)")
+                f"{box[slab]:g} m; the box must hold the layer plus an empty gap (at least the larger "
+                f"periodic edge for about 1e-5, see the ewald module docstring)")
 
     s = accuracy_product(acc)
     alpha = options.get("alpha")

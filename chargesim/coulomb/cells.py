@@ -85,9 +85,11 @@ import numba
 import numpy as np
 
 #: Cells per cutoff along each axis (the stencil reaches this many cells each
-#: side). Two cells per cutoff scan 125 cells of (rc/2)^3, about 15.6 rc^3 of
-#: candidates, against 27 rc^3 with one: measured faster on dense sets.
-REACH = 2
+#: side). One cell per cutoff: the 27-cell stencil holds 27 rc^3 of candidates
+#: (125 cells of (rc/2)^3 hold 15.6 rc^3), but the runs of sources are long, so
+#: the cutoff kernel's inner loop vectorises; measured about 1.8x faster at 60
+#: neighbours per point (benchmarks/bench_cutoff.py setting).
+REACH = 1
 
 #: Cells allowed per point (plus a floor): keeps memory O(N) when a few points
 #: are spread over a region much wider than the cutoff.
@@ -158,32 +160,47 @@ def wrap(c, n, length, periodic):
     return c - m * n, m * length
 
 
-@numba.njit(cache=True)
-def _bin(pos, origin, width, shape, box, periodic, points, order, start):
-    n = pos.shape[0]
+@numba.njit(parallel=True, cache=True)
+def _cell_ids(pos, origin, width, shape, box, periodic, reach, drop_far, cell):
+    """Cell of each point; -1 for points out of reach of an open grid (drop_far)."""
     ny, nz = shape[1], shape[2]
-    cell = np.empty(n, np.int64)
-    counts = np.zeros(start.size, np.int64)
-    for i in range(n):
+    for i in numba.prange(pos.shape[0]):
         x, y, z = pos[i, 0], pos[i, 1], pos[i, 2]
         if periodic:
             x = wrap_point(x, box[0])
             y = wrap_point(y, box[1])
             z = wrap_point(z, box[2])
         kx, ky, kz = locate(x, y, z, origin, width, shape, periodic)
-        # open grids enclose the sources; clamp only against rounding
+        if drop_far and (kx < -reach or ky < -reach or kz < -reach or kx >= shape[0] + reach
+                         or ky >= ny + reach or kz >= nz + reach):
+            # no source of the grid can be within the cutoff
+            cell[i] = -1
+            continue
+        # sources: clamp only against rounding; near targets: their stencil
+        # from the clamped cell still covers every source within the cutoff
         kx = min(max(kx, 0), shape[0] - 1)
         ky = min(max(ky, 0), ny - 1)
         kz = min(max(kz, 0), nz - 1)
-        c = (kx * ny + ky) * nz + kz
-        cell[i] = c
-        counts[c + 1] += 1
+        cell[i] = (kx * ny + ky) * nz + kz
+
+
+@numba.njit(cache=True)
+def _scatter(pos, cell, box, periodic, start, points, order):
+    """Stable counting sort of the points by cell (cell -1 left out)."""
+    counts = np.zeros(start.size, np.int64)
+    for i in range(cell.size):
+        if cell[i] >= 0:
+            counts[cell[i] + 1] += 1
+    start[0] = 0
     for c in range(1, start.size):
         start[c] = start[c - 1] + counts[c]
     fill = start[:-1].copy()
-    for i in range(n):
-        s = fill[cell[i]]
-        fill[cell[i]] += 1
+    for i in range(cell.size):
+        c = cell[i]
+        if c < 0:
+            continue
+        s = fill[c]
+        fill[c] += 1
         order[s] = i
         x, y, z = pos[i, 0], pos[i, 1], pos[i, 2]
         if periodic:
@@ -193,6 +210,20 @@ def _bin(pos, origin, width, shape, box, periodic, points, order, start):
         points[0, s] = x
         points[1, s] = y
         points[2, s] = z
+
+
+def _sort(pos, origin, width, shape, box, periodic, reach, drop_far):
+    n = pos.shape[0]
+    cell = np.empty(n, np.int64)
+    start = np.zeros(int(np.prod(shape)) + 1, np.int64)
+    if n:
+        _cell_ids(pos, origin, width, shape, box, periodic, reach, drop_far, cell)
+    kept = n if not drop_far else int(np.count_nonzero(cell >= 0))
+    points = np.empty((3, kept))
+    order = np.empty(kept, np.int64)
+    if n:
+        _scatter(pos, cell, box, periodic, start, points, order)
+    return points, order, start
 
 
 def _cap(counts, limit):
@@ -263,12 +294,35 @@ def build(positions, cutoff, box=None, *, reach=REACH):
         # every source must fall inside the grid: width * n > extent
         width = np.maximum(w0, extent / shape * (1.0 + 1e-12))
         origin = lo.copy()
-    ncell = int(np.prod(shape))
-    points = np.empty((3, n))
-    order = np.empty(n, np.int64)
-    start = np.zeros(ncell + 1, np.int64)
-    _bin(pos, origin, width, shape, bx, periodic, points, order, start)
+    points, order, start = _sort(pos, origin, width, shape, bx, periodic, reach, False)
     return Cells(points, order, start, shape, width, origin, bx, periodic, reach, rc)
+
+
+def bin_targets(targets, cells):
+    """Sort target points into the cells of a source grid.
+
+    Parameters
+    ----------
+    targets : ndarray, shape (M, 3)
+        Target points, m (wrapped into the box when periodic).
+    cells : Cells
+        The source grid (:func:`build`).
+
+    Returns
+    -------
+    points : ndarray (3, M')
+        Target coordinates in cell order, m.
+    order : ndarray (M',) int64
+        Input index of each sorted target.
+    start : ndarray (ncell + 1,) int64
+        Targets of cell c are ``start[c]:start[c + 1]``; the stencil of cell c
+        (:func:`cell_segments`) holds every source within the cutoff of them.
+        Targets of an open grid farther than the stencil reaches have no
+        source within the cutoff and are left out (M' <= M).
+    """
+    pos = np.ascontiguousarray(targets, dtype=np.float64).reshape(-1, 3)
+    return _sort(pos, cells.origin, cells.width, cells.shape, cells.box, cells.periodic,
+                 cells.reach, not cells.periodic)
 
 
 @numba.njit(inline="always")
@@ -341,6 +395,73 @@ def segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, sh
                     g += 1
                 cz += run + 1
     return g
+
+
+@numba.njit(inline="always")
+def cell_segments(cx, cy, cz, start, shape, box, periodic, reach, lo, hi, shift):
+    """Slot ranges of all the stencil cells around cell (cx, cy, cz), with shifts.
+
+    The cell-level version of :func:`segments`: the (2 reach + 1)^3 cells
+    around the cell (clipped to the grid when open; wrapped, with image
+    shifts, when periodic) as ranges ``lo[g]:hi[g]``, a run along z being one
+    range, in a fixed order. Every source within the grid's cutoff of any
+    point of the cell is listed. Returns the count; buffers as for
+    :func:`segments`.
+    """
+    nx, ny, nz = shape[0], shape[1], shape[2]
+    lox, hix = axis_range(cx, nx, reach, periodic)
+    loy, hiy = axis_range(cy, ny, reach, periodic)
+    loz, hiz = axis_range(cz, nz, reach, periodic)
+    g = 0
+    for ux in range(lox, hix + 1):
+        wx, shx = wrap(ux, nx, box[0], periodic)
+        for uy in range(loy, hiy + 1):
+            wy, shy = wrap(uy, ny, box[1], periodic)
+            row = (wx * ny + wy) * nz
+            uz = loz
+            while uz <= hiz:
+                wz, shz = wrap(uz, nz, box[2], periodic)
+                run = min(nz - 1 - wz, hiz - uz)
+                b = start[row + wz]
+                e = start[row + wz + run + 1]
+                if e > b:
+                    lo[g] = b
+                    hi[g] = e
+                    shift[g, 0] = shx
+                    shift[g, 1] = shy
+                    shift[g, 2] = shz
+                    g += 1
+                uz += run + 1
+    return g
+
+
+@numba.njit(inline="always")
+def gather(nseg, lo, hi, shift, points, bx, by, bz, bslot):
+    """Copy the sources of segments 0..nseg-1 into contiguous buffers.
+
+    ``bx, by, bz`` get the image coordinates (m, shift applied) and ``bslot``
+    the slots, in segment order; returns the count. The buffers must hold
+    ``sum(hi[:nseg] - lo[:nseg])`` entries (check with :func:`segment_total`).
+    """
+    k = 0
+    for g in range(nseg):
+        shx, shy, shz = shift[g, 0], shift[g, 1], shift[g, 2]
+        for s in range(lo[g], hi[g]):
+            bx[k] = points[0, s] + shx
+            by[k] = points[1, s] + shy
+            bz[k] = points[2, s] + shz
+            bslot[k] = s
+            k += 1
+    return k
+
+
+@numba.njit(inline="always")
+def segment_total(nseg, lo, hi):
+    """Number of slots in segments 0..nseg-1."""
+    k = 0
+    for g in range(nseg):
+        k += hi[g] - lo[g]
+    return k
 
 
 #: Points handled per buffer allocation in the parallel kernels.

@@ -56,8 +56,7 @@ def _phi(h):
     return e, p1, p2
 
 
-@numba.njit(parallel=True, cache=True)
-def _exp_first(x, v, a, u, beta, dt, codes, code, f0):
+def _exp_first_py(x, v, a, u, beta, dt, codes, code, f0):
     for i in numba.prange(x.shape[0]):
         if codes[i] != code:
             continue
@@ -69,8 +68,7 @@ def _exp_first(x, v, a, u, beta, dt, codes, code, f0):
             v[i, k] = e * v[i, k] + dt * p1 * f
 
 
-@numba.njit(parallel=True, cache=True)
-def _exp_second(v, a, u, beta, dt, codes, code, f0, err):
+def _exp_second_py(v, a, u, beta, dt, codes, code, f0, err):
     for i in numba.prange(v.shape[0]):
         if codes[i] != code:
             continue
@@ -83,8 +81,7 @@ def _exp_second(v, a, u, beta, dt, codes, code, f0, err):
         err[i] = dt * dt * p2 * math.sqrt(s)
 
 
-@numba.njit(parallel=True, cache=True)
-def _vv_first(x, v, a, u, beta, dt, codes, code, f0):
+def _vv_first_py(x, v, a, u, beta, dt, codes, code, f0):
     for i in numba.prange(x.shape[0]):
         if codes[i] != code:
             continue
@@ -95,8 +92,7 @@ def _vv_first(x, v, a, u, beta, dt, codes, code, f0):
             x[i, k] += dt * v[i, k]
 
 
-@numba.njit(parallel=True, cache=True)
-def _vv_second(v, a, u, beta, dt, codes, code, f0, err):
+def _vv_second_py(v, a, u, beta, dt, codes, code, f0, err):
     for i in numba.prange(v.shape[0]):
         if codes[i] != code:
             continue
@@ -107,6 +103,25 @@ def _vv_second(v, a, u, beta, dt, codes, code, f0, err):
             df = f - f0[i, k]
             s += df * df
         err[i] = 0.5 * dt * dt * math.sqrt(s)
+
+
+#: Particles from which the kernels run in parallel threads: below, the cost of
+#: waking threads (large on a shared, loaded machine) exceeds the work.
+PARALLEL_MIN = 20000
+
+
+def _pair(fn):
+    """Serial and parallel compilations of one kernel (prange acts as range
+    in the serial one); each particle's update is the same in both."""
+    return numba.njit(cache=True)(fn), numba.njit(parallel=True, cache=True)(fn)
+
+
+_KERNELS = {name: _pair(fn) for name, fn in (("exp_first", _exp_first_py), ("exp_second", _exp_second_py),
+                                              ("vv_first", _vv_first_py), ("vv_second", _vv_second_py))}
+
+
+def _kernel(name, n):
+    return _KERNELS[name][1 if n >= PARALLEL_MIN else 0]
 
 
 def _check_arrays(x, v, a, u, beta, codes):
@@ -238,10 +253,10 @@ class VelocityVerlet(Integrator):
             return np.where(beta > 0, 2.0 / np.where(beta > 0, beta, 1.0), np.inf)
 
     def _first(self, x, v, a, u, beta, dt, codes, f0):
-        _vv_first(x, v, a, u, beta, dt, codes, self.code, f0)
+        _kernel("vv_first", x.shape[0])(x, v, a, u, beta, dt, codes, self.code, f0)
 
     def _second(self, v, a, u, beta, dt, codes, f0, err):
-        _vv_second(v, a, u, beta, dt, codes, self.code, f0, err)
+        _kernel("vv_second", v.shape[0])(v, a, u, beta, dt, codes, self.code, f0, err)
 
 
 class DragExact(Integrator):
@@ -263,10 +278,10 @@ class DragExact(Integrator):
     code = 1
 
     def _first(self, x, v, a, u, beta, dt, codes, f0):
-        _exp_first(x, v, a, u, beta, dt, codes, self.code, f0)
+        _kernel("exp_first", x.shape[0])(x, v, a, u, beta, dt, codes, self.code, f0)
 
     def _second(self, v, a, u, beta, dt, codes, f0, err):
-        _exp_second(v, a, u, beta, dt, codes, self.code, f0, err)
+        _kernel("exp_second", v.shape[0])(v, a, u, beta, dt, codes, self.code, f0, err)
 
 
 class AutoIntegrator(Integrator):

@@ -194,11 +194,14 @@ class Medium:
 class GriddedFlow:
     """Gas velocity given on a regular grid, trilinear interpolation.
 
+    The interpolation is that of :class:`chargesim.sources.GriddedField` (the
+    same grid code serves applied fields and gas velocities).
+
     Parameters
     ----------
     origin : array_like of 3 floats
         Position of grid node (0, 0, 0), m.
-    spacing : array_like of 3 floats
+    spacing : array_like of 3 floats (or one float)
         Node spacing per axis, m (> 0).
     values : array_like, shape (nx, ny, nz, 3)
         Gas velocity at the nodes, m/s (each n >= 2).
@@ -210,40 +213,20 @@ class GriddedFlow:
     """
 
     def __init__(self, origin, spacing, values):
-        self.origin = _vector(origin, "origin")
-        self.spacing = _vector(spacing, "spacing")
-        if np.any(self.spacing <= 0):
-            raise ValueError(f"spacing must be > 0 on every axis, got {spacing!r}")
-        v = np.ascontiguousarray(values, dtype=np.float64)
-        if v.ndim != 4 or v.shape[3] != 3 or min(v.shape[:3]) < 2:
-            raise ValueError(f"values must have shape (nx, ny, nz, 3) with each n >= 2, got {v.shape}")
-        bad = np.argwhere(~np.isfinite(v))
-        if bad.size:
-            raise ValueError(f"values holds a non-finite value at node {tuple(int(i) for i in bad[0][:3])}")
-        self.values = v
-        self.upper = self.origin + self.spacing * (np.array(v.shape[:3]) - 1)
+        from ..sources import GriddedField  # the layer above physics that holds grids
+
+        try:
+            self._grid = GriddedField(origin, spacing, values, name="gas velocity grid")
+        except ValueError as exc:
+            # the grid speaks of a "field": say which argument it was here
+            raise ValueError(str(exc).replace("field", "values", 1)) from None
+        self.origin = self._grid.origin
+        self.spacing = self._grid.spacing
+        self.values = self._grid.values
 
     def __call__(self, points):
         """Gas velocity at ``points`` ((M, 3), m), m/s, shape (M, 3)."""
-        p = _as_points(points)
-        g = (p - self.origin) / self.spacing
-        shape = np.array(self.values.shape[:3])
-        out = np.flatnonzero(np.any((g < 0) | (g > shape - 1), axis=1))
-        if out.size:
-            i = int(out[0])
-            raise ValueError(f"point {i} at {p[i].tolist()} m lies outside the flow grid "
-                             f"[{self.origin.tolist()}, {self.upper.tolist()}] m")
-        i0 = np.minimum(np.floor(g).astype(np.int64), shape - 2)
-        f = g - i0
-        res = np.zeros((p.shape[0], 3))
-        for dx in (0, 1):
-            wx = f[:, 0] if dx else 1.0 - f[:, 0]
-            for dy in (0, 1):
-                wy = f[:, 1] if dy else 1.0 - f[:, 1]
-                for dz in (0, 1):
-                    wz = f[:, 2] if dz else 1.0 - f[:, 2]
-                    res += (wx * wy * wz)[:, None] * self.values[i0[:, 0] + dx, i0[:, 1] + dy, i0[:, 2] + dz]
-        return res
+        return self._grid.field(_as_points(points))
 
     def describe(self):
         return {"kind": "grid", "origin": self.origin.copy(), "spacing": self.spacing.copy(),

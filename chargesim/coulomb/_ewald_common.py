@@ -285,77 +285,72 @@ def corrections(st, sources, charges, targets, field, potential):
 # --- real space --------------------------------------------------------------
 
 @numba.njit(parallel=True, cache=True)
-def _real_kernel(tx, ty, tz, trad, self_targets, use_radii, rad, q, alpha, rc2,
+def _real_kernel(tpoints, torder, self_targets, use_radii, rad, trad, q, alpha, rc,
                  points, order, start, shape, width, origin, box, periodic, reach,
                  ex, ey, ez, phi, bad):
+    # targets visited in cell order (tpoints, torder: sorted like the grid) for
+    # locality; each target's sum runs in one thread in the grid's fixed order
     two_over_sqrtpi = 2.0 / math.sqrt(math.pi)
+    rc2 = rc * rc
     px, py, pz = points[0], points[1], points[2]
-    for i in numba.prange(tx.size):
-        # the cell grid holds wrapped coordinates; wrap the target alike
-        x = cells.wrap_point(tx[i], box[0])
-        y = cells.wrap_point(ty[i], box[1])
-        z = cells.wrap_point(tz[i], box[2])
-        ri = trad[i] if use_radii else 0.0
-        kx, ky, kz = cells.locate(x, y, z, origin, width, shape, periodic)
-        lox, hix = cells.axis_range(kx, shape[0], reach, periodic)
-        loy, hiy = cells.axis_range(ky, shape[1], reach, periodic)
-        loz, hiz = cells.axis_range(kz, shape[2], reach, periodic)
-        fx = 0.0
-        fy = 0.0
-        fz = 0.0
-        p = 0.0
-        first_bad = -1
-        for cx in range(lox, hix + 1):
-            wx, shx = cells.wrap(cx, shape[0], box[0], periodic)
-            for cy in range(loy, hiy + 1):
-                wy, shy = cells.wrap(cy, shape[1], box[1], periodic)
-                row = (wx * shape[1] + wy) * shape[2]
-                cz = loz
-                while cz <= hiz:
-                    wz, shz = cells.wrap(cz, shape[2], box[2], periodic)
-                    run = min(shape[2] - 1 - wz, hiz - cz)
-                    for s in range(start[row + wz], start[row + wz + run + 1]):
-                        j = order[s]
-                        if self_targets and j == i:
+    m = torder.size
+    nbuf = cells.max_segments(reach)
+    for chunk in numba.prange((m + cells.CHUNK - 1) // cells.CHUNK):
+        lo = np.empty(nbuf, np.int64)
+        hi = np.empty(nbuf, np.int64)
+        sh = np.empty((nbuf, 3))
+        for t in range(chunk * cells.CHUNK, min(m, (chunk + 1) * cells.CHUNK)):
+            i = torder[t]
+            x, y, z = tpoints[0, t], tpoints[1, t], tpoints[2, t]
+            ri = trad[i] if use_radii else 0.0
+            nseg = cells.segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, sh)
+            fx = 0.0
+            fy = 0.0
+            fz = 0.0
+            p = 0.0
+            first_bad = -1
+            for g in range(nseg):
+                shx, shy, shz = sh[g, 0], sh[g, 1], sh[g, 2]
+                for s in range(lo[g], hi[g]):
+                    j = order[s]
+                    if self_targets and j == i:
+                        continue
+                    dx = x - (px[s] + shx)
+                    dy = y - (py[s] + shy)
+                    dz = z - (pz[s] + shz)
+                    r2 = dx * dx + dy * dy + dz * dz
+                    if r2 >= rc2:
+                        continue
+                    qj = q[j]
+                    a = max(rad[j], ri) if use_radii else 0.0
+                    if r2 == 0.0:
+                        if a == 0.0:
+                            if first_bad < 0:
+                                first_bad = j
                             continue
-                        dx = x - (px[s] + shx)
-                        dy = y - (py[s] + shy)
-                        dz = z - (pz[s] + shz)
-                        r2 = dx * dx + dy * dy + dz * dz
-                        if r2 >= rc2:
-                            continue
-                        qj = q[j]
-                        a = max(rad[j], ri) if use_radii else 0.0
-                        if r2 == 0.0:
-                            if a == 0.0:
-                                if first_bad < 0:
-                                    first_bad = j
-                                continue
-                            # sphere kernel minus the smooth erf/r part, at r = 0
-                            p += qj * (1.5 / a - alpha * two_over_sqrtpi)
-                            continue
-                        r = math.sqrt(r2)
-                        inv = 1.0 / r
-                        ar = alpha * r
-                        erfc_r = math.erfc(ar) * inv
-                        pot = erfc_r
-                        fac = (erfc_r + alpha * two_over_sqrtpi * math.exp(-ar * ar)) * inv * inv
-                        if r < a:
-                            # uniformly charged sphere instead of the point kernel
-                            a3 = a * a * a
-                            pot += 0.5 * (3.0 * a * a - r2) / a3 - inv
-                            fac += 1.0 / a3 - inv * inv * inv
-                        p += qj * pot
-                        fac *= qj
-                        fx += fac * dx
-                        fy += fac * dy
-                        fz += fac * dz
-                    cz += run + 1
-        ex[i] = fx
-        ey[i] = fy
-        ez[i] = fz
-        phi[i] = p
-        bad[i] = first_bad
+                        # sphere kernel minus the smooth erf/r part, at r = 0
+                        p += qj * (1.5 / a - alpha * two_over_sqrtpi)
+                        continue
+                    inv = 1.0 / math.sqrt(r2)
+                    ar = alpha * r2 * inv
+                    erfc_r = math.erfc(ar) * inv
+                    pot = erfc_r
+                    fac = (erfc_r + alpha * two_over_sqrtpi * math.exp(-ar * ar)) * inv * inv
+                    if r2 < a * a:
+                        # uniformly charged sphere instead of the point kernel
+                        a3 = a * a * a
+                        pot += 0.5 * (3.0 * a * a - r2) / a3 - inv
+                        fac += 1.0 / a3 - inv * inv * inv
+                    p += qj * pot
+                    fac *= qj
+                    fx += fac * dx
+                    fy += fac * dy
+                    fz += fac * dz
+            ex[i] = fx
+            ey[i] = fy
+            ez[i] = fz
+            phi[i] = p
+            bad[i] = first_bad
 
 
 def real_space(st, sources, charges, targets, radii):
@@ -393,9 +388,11 @@ def real_space(st, sources, charges, targets, radii):
         # pairs closer than a = max(R_i, R_j) need the sphere correction
         search = max(search, float(radii.max()))
     grid = cells.build(sources, search, st.box)
-    tgt = sources if self_targets else targets
-    t = np.ascontiguousarray(tgt.T)
-    m = tgt.shape[0]
+    if self_targets:
+        tpoints, torder = grid.points, grid.order
+    else:
+        tpoints, torder, _ = cells.bin_targets(targets, grid)
+    m = sources.shape[0] if self_targets else targets.shape[0]
     rad = radii if use_radii else np.zeros(sources.shape[0])
     trad = rad if self_targets else np.zeros(m)
     ex = np.empty(m)
@@ -403,7 +400,7 @@ def real_space(st, sources, charges, targets, radii):
     ez = np.empty(m)
     phi = np.empty(m)
     bad = np.empty(m, dtype=np.int64)
-    _real_kernel(t[0], t[1], t[2], trad, self_targets, use_radii, rad, charges, st.alpha, search * search,
+    _real_kernel(tpoints, torder, self_targets, use_radii, rad, trad, charges, st.alpha, search,
                  grid.points, grid.order, grid.start, grid.shape, grid.width, grid.origin, grid.box,
                  grid.periodic, grid.reach, ex, ey, ez, phi, bad)
     hit = np.flatnonzero(bad >= 0)

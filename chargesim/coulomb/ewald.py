@@ -58,7 +58,7 @@ MESH_CROSSOVER = 2000
 # Real-space work per pair relative to reciprocal work per (particle, k) pair:
 # sets the splitting parameter at which the two parts cost the same
 # (alpha^6 ~ c_real pi^3 N / (2 c_k V^2)); measured, see the benchmark.
-_COST_RATIO = 3.0
+_COST_RATIO = 40.0
 
 
 def kvectors(box, kc):

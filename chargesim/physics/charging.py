@@ -18,8 +18,10 @@ Relations
   mean thermal ion speed c_i = sqrt(8 k T/(pi m_i)) and K_E = 1/(4 pi eps0).
 * Rayleigh limit of a droplet (Rayleigh 1882): q_R = 8 pi (eps0 gamma r^3)^{1/2}.
 """
+import math
 import warnings
 
+import numba
 import numpy as np
 
 from .aerosol import _array, _finite, _out
@@ -233,8 +235,9 @@ def combined_charge(
     return _out(qf + qd)
 
 
+@numba.njit(cache=True)
 def _field_update(qn, qs, r):
-    """Exact field charging over a step of r = dt/tau, charges in the ions' sign.
+    """Exact field charging over a step of r = dt/tau, charge in the ions' sign.
 
     For -q_s <= q < q_s, dq/dt = (q_s/tau)(1 - q/q_s)^2, which integrates to
     q_s - q_1 = (q_s - q_0)/(1 + (q_s - q_0) r/q_s). A particle of the opposite
@@ -243,31 +246,52 @@ def _field_update(qn, qs, r):
     so it decays exponentially to -q_s and then follows the first law for the
     rest of the step. At and above q_s the particle takes no more ions.
     """
-    out = qn.copy()
-    # opposite sign beyond -q_s: exponential approach (also at zero field, q_s = 0)
-    far = qn < -qs
-    if np.any(far):
-        decayed = qn * np.exp(-4.0 * r)
-        reaches = far & (decayed >= -qs)
-        out = np.where(far & ~reaches, decayed, out)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            r_used = 0.25 * np.log(np.where(reaches, -qn / np.where(qs > 0, qs, 1.0), 1.0))
-        start = np.where(reaches, -qs, qn)
-        rem = np.where(reaches, np.maximum(r - r_used, 0.0), r)
-    else:
-        reaches = np.zeros(qn.shape, dtype=bool)
-        start, rem = qn, r
-    law = (reaches | ((start >= -qs) & (start < qs))) & (qs > 0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        gap = qs - start
-        new = qs - gap * qs / (qs + gap * rem)
-    return np.where(law, new, out)
+    if r <= 0.0:
+        return qn
+    if qn < -qs:
+        r1 = 0.25 * math.log(-qn / qs) if qs > 0.0 else math.inf
+        if r <= r1:
+            return qn * math.exp(-4.0 * r)
+        qn = -qs
+        r -= r1
+    if qs > 0.0 and qn < qs:
+        gap = qs - qn
+        qn = qs - gap * qs / (qs + gap * r)
+    return qn
 
 
+@numba.njit(cache=True)
 def _diffusion_update(qn, scale, rate, dt):
-    """Exact White-law step q_1 = Q ln(exp(q_0/Q) + R dt/Q), in the ions' sign."""
-    with np.errstate(divide="ignore"):
-        return scale * np.logaddexp(qn / scale, np.log(rate * dt / scale))
+    """Exact White-law step q_1 = Q ln(exp(q_0/Q) + R dt/Q), charge in the ions' sign."""
+    add = rate * dt / scale
+    if add <= 0.0:
+        return qn
+    a = qn / scale
+    if a < 700.0:  # exp(a) stays finite: the direct form is the quickest
+        return scale * math.log(math.exp(a) + add)
+    return qn + scale * math.log1p(add * math.exp(-a))
+
+
+@numba.njit(cache=True, parallel=True)
+def _charge_kernel(q, d, eps, e, n_i, z_i, temp, m_i, dt, sign, do_field, do_diffusion, out):
+    """charge_step for each particle (inputs broadcast to one length)."""
+    for i in numba.prange(q.shape[0]):
+        qn = sign * q[i]
+        di = d[i]
+        if do_diffusion:
+            # White's rate law dq/dt = R exp(-q/Q), see _diffusion_scales
+            kt = BOLTZMANN * temp[i]
+            scale = di * kt / (2.0 * COULOMB_K * _E)
+            speed = math.sqrt(8.0 * kt / (math.pi * m_i[i]))
+            rate = _E * math.pi * di * di * speed * n_i[i] / 4.0
+            qn = _diffusion_update(qn, scale, rate, 0.5 * dt[i])
+        if do_field:
+            qs = 3.0 * math.pi * EPSILON_0 * di * di * abs(e[i]) / (1.0 + 2.0 / eps[i])
+            r = dt[i] * n_i[i] * _E * z_i[i] / (4.0 * EPSILON_0)  # dt/tau, finite when N_i = 0
+            qn = _field_update(qn, qs, r)
+        if do_diffusion:
+            qn = _diffusion_update(qn, scale, rate, 0.5 * dt[i])
+        out[i] = sign * qn
 
 
 def charge_step(
@@ -322,31 +346,27 @@ def charge_step(
     Returns
     -------
     ndarray
-        New charges, C, broadcast shape of the inputs.
+        New charges, C, in the broadcast shape of the inputs.
     """
     if ion_sign not in (-1, 1):
         raise ValueError(f"ion_sign must be -1 or +1, got {ion_sign!r}")
-    q = _finite(charge, "charge")
-    step = _array(dt, "dt", positive=False, nonnegative=True)
-    n = _array(ion_density, "ion_density", positive=False, nonnegative=True)
-    z = _array(ion_mobility, "ion_mobility")
-    qn = ion_sign * q
-    if diffusion:
-        scale, rate = _diffusion_scales(diameter, n, temperature, ion_mass)
-        half = 0.5 * step
-        qn = _diffusion_update(qn, scale, rate, half)
-    if field_charging:
-        qs = np.asarray(saturation_charge(diameter, field_magnitude, particle_eps_r))
-        r = step * n * _E * z / (4.0 * EPSILON_0)  # dt/tau, finite when N_i = 0
-        qn, qs, r = np.broadcast_arrays(qn, qs, r)
-        qn = _field_update(np.array(qn, dtype=np.float64), qs, r)
-    if diffusion:
-        qn = _diffusion_update(qn, scale, rate, half)
-    shape = np.broadcast_shapes(
-        np.shape(q), np.shape(diameter), np.shape(particle_eps_r), np.shape(field_magnitude),
-        np.shape(n), np.shape(z), np.shape(temperature), np.shape(ion_mass), np.shape(step),
-    )
-    return np.broadcast_to(ion_sign * np.asarray(qn, dtype=np.float64), shape).copy()
+    args = [
+        _finite(charge, "charge"),
+        _array(diameter, "diameter"),
+        _array(particle_eps_r, "particle_eps_r", allow_inf=True),
+        _finite(field_magnitude, "field_magnitude"),
+        _array(ion_density, "ion_density", positive=False, nonnegative=True),
+        _array(ion_mobility, "ion_mobility"),
+        _array(temperature, "temperature"),
+        _array(ion_mass, "ion_mass"),
+        _array(dt, "dt", positive=False, nonnegative=True),
+    ]
+    _eps_factor(args[2])  # the >= 1 check
+    shape = np.broadcast_shapes(*(a.shape for a in args))
+    flat = [np.ascontiguousarray(np.broadcast_to(a, shape).reshape(-1)) for a in args]
+    out = np.empty(flat[0].shape[0])
+    _charge_kernel(*flat, float(ion_sign), bool(field_charging), bool(diffusion), out)
+    return out.reshape(shape)
 
 
 def cap_rayleigh(charge, diameter, surface_tension):

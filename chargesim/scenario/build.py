@@ -112,7 +112,9 @@ def _grounded_images(d, eps_m):
             if g["images"]:
                 images.append(src_pkg.GroundedPlane(g["point"], g["normal"], name=name))
             if g["collect"]:
-                collectors.append(motion.PlaneCollector(name, g["point"], g["normal"], lo=lo, hi=hi))
+                a = lo if g["extent_lower"] is None else g["extent_lower"]
+                b = hi if g["extent_upper"] is None else g["extent_upper"]
+                collectors.append(motion.PlaneCollector(name, g["point"], g["normal"], lo=a, hi=b))
         elif t == "plates":
             k = _AXIS[g["axis"]]
             if g["images"]:
@@ -208,9 +210,9 @@ def _size(p):
 
 
 def mean_cube(p):
-    """E[d^3] of a population's size distribution, m^3."""
+    """E[d^3] of a population's size distribution, m^3 (0 for point charges)."""
     if p["distribution"] == "single":
-        return p["diameter"] ** 3
+        return (p["diameter"] or 0.0) ** 3
     if p["distribution"] == "lognormal":
         return _size(p).mean_cube()
     return float(np.dot(p["fractions"], p["diameters"] ** 3))

@@ -132,6 +132,13 @@ def _grounded(d, lo, hi):
         if t == "plane":
             if not np.linalg.norm(g["normal"]) > 0:
                 raise Fail(f"{path}.normal", "the normal of a plane must not be zero")
+            if g["extent_lower"] is not None or g["extent_upper"] is not None:
+                a = lo if g["extent_lower"] is None else g["extent_lower"]
+                b = hi if g["extent_upper"] is None else g["extent_upper"]
+                for k in range(3):
+                    if b[k] < a[k]:
+                        raise Fail(f"{path}.extent_upper[{k}]", f"{_fmt(b[k])} m must not be less than "
+                                                                f"extent_lower[{k}] = {_fmt(a[k])} m")
         elif t == "plates":
             if not g["upper"] > g["lower"]:
                 raise Fail(f"{path}.upper", f"{_fmt(g['upper'])} m must be greater than lower = {_fmt(g['lower'])} m "
@@ -217,6 +224,8 @@ def _populations(d, lo, hi):
                  "lognormal": ("diameter", "diameters", "fractions"),
                  "list": ("diameter", "median_diameter", "gsd", "min_diameter", "max_diameter")}
         for k in keys[dist]:
+            if k == "diameter" and p["fixed"]:
+                continue  # fixed charges may be points
             if p[k] is None:
                 raise Fail(f"{path}.{k}", f"missing required key for distribution = {dist!r}")
         for k in other[dist]:

@@ -48,7 +48,7 @@ class TruncatedLognormalSize:
         z = np.linspace(self._a, self._b, 4001)
         w = np.exp(-0.5 * z**2)
         d3 = (self.median * np.exp(self._s * z)) ** 3
-        return float(np.trapz(w * d3, z) / np.trapz(w, z))
+        return float(np.trapezoid(w * d3, z) / np.trapezoid(w, z))
 
     def describe(self):
         return {"kind": "lognormal", "median": self.median, "gsd": self.gsd, "min": self.dmin, "max": self.dmax}

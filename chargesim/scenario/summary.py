@@ -11,7 +11,7 @@ import numpy as np
 
 from .. import coulomb
 from ..physics import hazards
-from .build import build, coulomb_options
+from .build import build, coulomb_options, mean_cube
 
 # rough costs for the estimates (order of magnitude on a 2-core workstation)
 _BYTES_PER_PARTICLE = 600  # state arrays, forces, integrator and evaluator workspace
@@ -58,11 +58,16 @@ def _population_plan(d):
     for p in d["populations"]:
         placed = p["positions"].shape[0] if p["positions"] is not None else p["count"]
         fed = sum(i["rate"] * (i["stop"] - i["start"]) for i in d["inlets"] if i["population"] == p["name"])
-        size = {"single": lambda: f"{p['diameter'] * 1e6:.4g} um",
+        size = {"single": lambda: "point charges" if p["diameter"] is None else f"{p['diameter'] * 1e6:.4g} um",
                 "lognormal": lambda: f"lognormal, median {p['median_diameter'] * 1e6:.4g} um, gsd {p['gsd']:.3g}",
                 "list": lambda: f"{p['diameters'].size} sizes"}[p["distribution"]]()
+        weight = p["weight"]
+        for i in d["inlets"]:
+            if i["population"] == p["name"] and i["mass_flow"] is not None:
+                weight = max(1.0, i["mass_flow"] / (i["rate"] * p["density"] * math.pi / 6.0 * mean_cube(p)))
+                break
         rows.append({"name": p["name"], "fixed": p["fixed"], "placed": int(placed), "fed": int(round(fed)),
-                     "size": size, "weight": p["weight"]})
+                     "size": size, "weight": weight})
     return rows
 
 

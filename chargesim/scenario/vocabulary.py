@@ -129,9 +129,14 @@ GROUNDED = Table(
         "collect": Boolean("Particles that touch it deposit on it.", True),
     },
     variants={
-        "plane": ("An infinite grounded plane through `point`; particles live on the side `normal` points to.", {
+        "plane": ("A grounded plane through `point` (a panel, a workpiece); particles live on the side `normal` "
+                  "points to. Its images are those of an infinite plane; it collects within its extent.", {
             "point": Vector("A point on the plane.", "m"),
             "normal": Vector("Normal of the plane, pointing into the particle side (not zero).", "1"),
+            "extent_lower": Vector("Lower corner of the box bounding the collecting part.", "m", None,
+                                   default_doc="the domain"),
+            "extent_upper": Vector("Upper corner of the box bounding the collecting part.", "m", None,
+                                   default_doc="the domain"),
         }),
         "plates": ("Two grounded parallel plates normal to `axis` (alternating image series).", {
             "axis": Choice("Axis normal to the plates.", AXES),

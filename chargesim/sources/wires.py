@@ -26,8 +26,6 @@ from ..physics.constants import EPSILON_0
 from .base import FieldSource, as_number, as_vector
 
 _TWO_PI_EPS0 = 2.0 * math.pi * EPSILON_0
-#: Beyond this beta*|y| a wire's contribution is below 1e-17 of its own: skipped.
-_XI_CUT = 40.0
 
 
 class WireInTube(FieldSource):
@@ -105,26 +103,33 @@ class WireInTube(FieldSource):
 
 
 @numba.njit(cache=True, parallel=True)
-def _wire_plate_kernel(x, y, wire_y, lam, beta, s, a, voltage, period, fx, fy, pot):
+def _wire_plate_kernel(x, y, y_first, spacing, lam, beta, s, a, voltage, period, xi_cut, need_field, need_pot,
+                       fx, fy, pot):
     """Field and potential (without 1/(4 pi eps0)) of wires between grounded plates.
 
-    x is measured from the centre plane, y from the first wire. With
-    period > 0 the row is infinite: y is folded into one period and
-    ``wire_y`` holds the copies kept by the tolerance.
+    x is measured from the centre plane, y from the first wire; wire j sits at
+    y_first + j spacing with line charge lam[j]. With period > 0 the row is
+    infinite: y is folded into one period and the wires are the copies kept by
+    the tolerance. Only wires within beta |dy| <= xi_cut are visited.
     """
     m = x.shape[0]
-    nw = wire_y.shape[0]
+    nw = lam.shape[0]
     a2 = a * a
+    reach = xi_cut / beta
     for i in numba.prange(m):
         xi = x[i]
         if abs(xi) > s:
-            fx[i] = 0.0
-            fy[i] = 0.0
-            pot[i] = 0.0
+            if need_field:
+                fx[i] = 0.0
+                fy[i] = 0.0
+            if need_pot:
+                pot[i] = 0.0
             continue
         yi = y[i]
         if period > 0.0:
             yi -= period * np.floor(yi / period + 0.5)
+        j0 = max(0, int(math.ceil((yi - reach - y_first) / spacing)))
+        j1 = min(nw - 1, int(math.floor((yi + reach - y_first) / spacing)))
         bx = beta * xi
         cx = math.cos(bx)
         sx = math.sin(bx)
@@ -134,31 +139,32 @@ def _wire_plate_kernel(x, y, wire_y, lam, beta, s, a, voltage, period, fx, fy, p
         ex = 0.0
         ey = 0.0
         inside = False
-        for j in range(nw):
-            dy = yi - wire_y[j]
+        for j in range(j0, j1 + 1):
+            dy = yi - (y_first + j * spacing)
             if xi * xi + dy * dy < a2:
                 inside = True
                 break
-            xi_ = beta * dy
-            if abs(xi_) > _XI_CUT:
-                continue
-            sh2 = math.sinh(0.5 * xi_)
-            ch2 = math.cosh(0.5 * xi_)
-            # written without cancellation near the wire:
+            # cosh and sinh of xi/2 from one expm1, without cancellation near the wire
+            e1 = math.expm1(0.5 * beta * dy)
+            eh = 1.0 + e1
+            sh2 = 0.5 * e1 * (e1 + 2.0) / eh
+            ch2 = 0.5 * (eh + 1.0 / eh)
             # D = cosh(xi) - cos(bx), N = cosh(xi) + cos(bx)
             d = 2.0 * (sh2 * sh2 + hs2)
-            n = 2.0 * (ch2 * ch2 - hs2)
-            phi += lam[j] * math.log1p(2.0 * cx / d)
-            shx = math.sinh(xi_)
-            ex += lam[j] * beta * sx * (1.0 / n + 1.0 / d)
-            ey -= lam[j] * beta * shx * (1.0 / n - 1.0 / d)
+            if need_pot:
+                phi += lam[j] * math.log1p(2.0 * cx / d)
+            if need_field:
+                n = 2.0 * (ch2 * ch2 - hs2)
+                ex += lam[j] * beta * sx * (1.0 / n + 1.0 / d)
+                ey -= lam[j] * beta * (2.0 * sh2 * ch2) * (1.0 / n - 1.0 / d)
         if inside:
-            fx[i] = 0.0
-            fy[i] = 0.0
-            pot[i] = voltage
-        else:
+            ex = 0.0
+            ey = 0.0
+            phi = voltage
+        if need_field:
             fx[i] = ex
             fy[i] = ey
+        if need_pot:
             pot[i] = phi
 
 
@@ -193,7 +199,8 @@ class WirePlateChannel(FieldSource):
     periodic : bool
         An infinite row with a wire at origin[1] + k spacing for every integer k.
     tol : float
-        Relative truncation tolerance of the sum over the row (periodic rows).
+        Relative truncation tolerance of the sum over the row: wires whose
+        contribution falls below it (about 2 exp(-pi |dy|/(2 s))) are left out.
     length : float, optional
         Wire length along z, m, for outlines only.
     name : str
@@ -225,6 +232,9 @@ class WirePlateChannel(FieldSource):
         self.origin = as_vector(origin, "origin")
         self.length = None if length is None else as_number(length, "length", positive=True)
         self.beta = beta = math.pi / (2.0 * s)
+        # a wire beta |dy| away adds about 2 exp(-beta |dy|) of its own potential
+        # (and of the mean field): wires beyond ln(2/tol) are left out
+        self._xi_cut = max(1.0, math.log(2.0 / self.tol))
         self_term = math.log(2.0 / (beta * a))  # = ln(4 s/(pi a)), times 1/(2 pi eps0)
         if self.periodic:
             # copies of the one wire within the tolerance: a wire k periods away adds
@@ -264,24 +274,27 @@ class WirePlateChannel(FieldSource):
         """Voltage over wire-to-plate distance, V/m (the usual design figure)."""
         return abs(self.voltage) / self.plate_distance
 
-    def _eval(self, pts):
+    def _eval(self, pts, need_field=True, need_pot=True):
         x = np.ascontiguousarray(pts[:, 0] - self.origin[0])
         y = np.ascontiguousarray(pts[:, 1] - self.origin[1])
         m = pts.shape[0]
-        fx, fy, pot = np.empty(m), np.empty(m), np.empty(m)
-        _wire_plate_kernel(x, y, self._wire_y, self._lam, self.beta, self.plate_distance, self.wire_radius,
-                           self.voltage / self._scale, self.wire_spacing if self.periodic else 0.0, fx, fy, pot)
+        fx, fy = (np.empty(m), np.empty(m)) if need_field else (np.empty(0), np.empty(0))
+        pot = np.empty(m) if need_pot else np.empty(0)
+        _wire_plate_kernel(x, y, float(self._wire_y[0]), self.wire_spacing, self._lam, self.beta,
+                           self.plate_distance, self.wire_radius, self.voltage / self._scale,
+                           self.wire_spacing if self.periodic else 0.0, self._xi_cut, need_field, need_pot,
+                           fx, fy, pot)
         return fx * self._scale, fy * self._scale, pot * self._scale
 
     def _field(self, pts):
-        fx, fy, _ = self._eval(pts)
+        fx, fy, _ = self._eval(pts, need_pot=False)
         out = np.zeros_like(pts)
         out[:, 0] = fx
         out[:, 1] = fy
         return out
 
     def _potential(self, pts):
-        return self._eval(pts)[2]
+        return self._eval(pts, need_field=False)[2]
 
     def field_and_potential(self, points):
         """Field (V/m, (M, 3)) and potential (V, (M,)) from one pass."""

@@ -89,6 +89,10 @@ def _electrodes(d, lo, hi):
             if not r < 0.5 * (p1 - p0):
                 raise Fail(f"{path}.wire_radius", f"{_fmt(r)} m: the wires midway would touch the plates "
                                                   f"{_fmt(p1 - p0)} m apart (overlapping electrodes)")
+            if e["n_wires"] > 1 and e["wire_spacing"] is None:
+                raise Fail(f"{path}.wire_spacing", f"missing required key for n_wires = {e['n_wires']}")
+            if e["wire_spacing"] is None:
+                e["wire_spacing"] = p1 - p0  # unused with one wire; the source wants a positive value
             if e["n_wires"] > 1 and not e["wire_spacing"] > 2 * r:
                 raise Fail(f"{path}.wire_spacing", f"{_fmt(e['wire_spacing'])} m is not more than one wire diameter "
                                                    f"({_fmt(2 * r)} m): the wires overlap (overlapping electrodes)")

@@ -254,7 +254,7 @@ def run(scenario, output=None, overwrite=False, resume=False, quiet=True, thread
     d = scenario.data
     info = run_info(scenario, built)
     if built.system is None:
-        return _run_static(scenario, built, info, output, overwrite)
+        return _run_static(scenario, built, info, output, overwrite, resume)
     from ..motion import Simulation
 
     dt = d["time"]["step"]
@@ -331,7 +331,7 @@ def _write_grids(scenario, built, writer):
                            attrs={"sources": "applied sources and fixed charges"})
 
 
-def _run_static(scenario, built, info, output, overwrite):
+def _run_static(scenario, built, info, output, overwrite, resume=False):
     """Fixed charges only: energy, forces and field grids; no time stepping."""
     res = static_analysis(built)
     if output is None:
@@ -340,6 +340,11 @@ def _run_static(scenario, built, info, output, overwrite):
     from ..motion import ParticleState
 
     path = os.fspath(output)
+    if resume and os.path.exists(path):
+        done = open_results(path)
+        if done.finished:
+            log.warning("%s: the run has finished already; nothing to resume", path)
+            return done
     try:
         w = ResultsWriter(path, scenario_text=scenario.text, seed=scenario.seed, overwrite=overwrite)
     except FileExistsError:

@@ -104,8 +104,9 @@ ELECTRODE = Table(
                        "the row (and the gas flow) runs along y.", {
             "plates": QuantityList("x coordinates of the two grounded plates.", "m", min_len=2, max_len=2),
             "first_wire": Quantity("y coordinate of the first wire.", "m"),
-            "wire_spacing": Quantity("Distance between neighbouring wires along y.", "m", **_POSITIVE,
-                                     why="wires are apart"),
+            "wire_spacing": Quantity("Distance between neighbouring wires along y (needed for more than one "
+                                     "wire).", "m", None, **_POSITIVE, why="wires are apart",
+                                     default_doc="none (one wire)"),
             "n_wires": Integer("Number of wires in the row.", 1, lo=1, hi=200),
             "wire_radius": Quantity("Radius of each wire.", "m", **_POSITIVE, why="a wire has a positive radius"),
             "voltage": Quantity("Potential of the wires (the plates are grounded).", "V"),

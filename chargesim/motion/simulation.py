@@ -3,12 +3,12 @@
 
 One step, of length dt, from t to t + dt:
 
-1. integrate, first half: positions to t + dt with the forces at t
-   (velocities provisional);
-2. random walks: Brownian motion (may deposit) and turbulent mixing as an
-   eddy diffusivity (reflected at collectors: mixing brings particles to the
-   wall region, the drift through the laminar sublayer deposits them, as
-   Deutsch assumed);
+1. turbulent mixing as an eddy diffusivity: a position random walk
+   mirrored at collectors (mixing brings particles to the wall region, the
+   drift through the laminar sublayer deposits them, as Deutsch assumed);
+2. integrate, first half: positions to t + dt with the forces at t
+   (velocities provisional), plus Brownian motion (a random walk that may
+   deposit);
 3. boundaries and collectors: the earliest contact along each particle's
    segment is a deposit (collector) or an escape (open face); survivors are
    reflected or wrapped; dead rows are dropped;
@@ -269,34 +269,37 @@ class Simulation:
             self._beta = np.zeros(n)
 
     # -- one step ---------------------------------------------------------------
-    def _random_walk(self, dt):
+    def _mixing(self, dt):
+        """Turbulent mixing: a position random walk that never deposits."""
         sys_ = self.system
         s = sys_.state
         n = s.n
-        if n == 0:
+        if n == 0 or not np.any(sys_.eddy_diffusivity > 0):
             return
-        rng = sys_.rng
         x = s.position
-        if sys_.brownian:
-            sigma = np.sqrt(2.0 * np.asarray(sys_.medium.diffusivity(s.diameter)) * dt)
-            x += sigma[:, None] * rng.standard_normal((n, 3))
-        if np.any(sys_.eddy_diffusivity > 0):
-            dx = np.sqrt(2.0 * sys_.eddy_diffusivity * dt) * rng.standard_normal((n, 3))
-            if sys_.collectors:
-                # mixing does not carry particles into a collector: a
-                # displacement that would is mirrored at the surface (which
-                # keeps a well-mixed density uniform up to the wall), and
-                # dropped if the mirror image overlaps a collector too
-                r = s.radius
-                y = x + dx
-                for c in sys_.collectors:
-                    y = c.mirror(y, r)
-                bad = np.zeros(n, dtype=bool)
-                for c in sys_.collectors:
-                    bad |= c.signed_distance(y, r) < 0
-                y[bad] = x[bad]
-                dx = y - x
-            x += dx
+        y = x + np.sqrt(2.0 * sys_.eddy_diffusivity * dt) * sys_.rng.standard_normal((n, 3))
+        if sys_.collectors:
+            # a displacement that would carry a particle into a collector is
+            # mirrored at the surface (which keeps a well-mixed density
+            # uniform up to the wall), and dropped if the image overlaps a
+            # collector too; deposits come from the deterministic drift
+            r = s.radius
+            for c in sys_.collectors:
+                y = c.mirror(y, r)
+            bad = np.zeros(n, dtype=bool)
+            for c in sys_.collectors:
+                bad |= c.signed_distance(y, r) < 0
+            y[bad] = x[bad]
+        x[:] = y
+
+    def _brownian(self, dt):
+        """Brownian motion: a position random walk with D = k T B (may deposit)."""
+        sys_ = self.system
+        s = sys_.state
+        if s.n == 0 or not sys_.brownian:
+            return
+        sigma = np.sqrt(2.0 * np.asarray(sys_.medium.diffusivity(s.diameter)) * dt)
+        s.position[:] += sigma[:, None] * sys_.rng.standard_normal((s.n, 3))
 
     def _boundaries(self, x0, dt):
         """Deposits and escapes along x0 -> x; returns (deposit records, escape records)."""
@@ -387,10 +390,11 @@ class Simulation:
         n = s.n
         codes = integ.assign(self._beta, dt, s.id)
         f0 = np.zeros((n, 3))
+        self._mixing(dt)
         x0 = s.position.copy()
         if n:
             integ.first_half(s.position, s.velocity, self._accel, self._u, self._beta, dt, codes, f0)
-        self._random_walk(dt)
+        self._brownian(dt)
         deposits, escapes = self._boundaries(x0, dt)
         codes, f0 = s.compact(extra=(codes, f0))
         added = self._emit(dt)

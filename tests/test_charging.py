@@ -198,3 +198,20 @@ def test_cap_rayleigh_counts_and_warns():
 def test_validation(call, name):
     with pytest.raises(ValueError, match=name):
         call()
+
+
+def test_threaded_path_matches_serial_path():
+    # above PARALLEL_THRESHOLD the per-particle kernel runs threaded: same numbers
+    n = charging.PARALLEL_THRESHOLD + 11
+    rng = np.random.default_rng(4)
+    q = rng.normal(size=n) * 1e-17
+    d = rng.uniform(0.1e-6, 20e-6, n)
+    e = rng.uniform(0, 6e5, n)
+    args = (d, 4.0, e, 1e13, 2e-4, 293.15, charging.DEFAULT_ION_MASS, 1e-3)
+    whole = charging.charge_step(q, *args)
+    half = n // 2
+    parts = np.concatenate([
+        charging.charge_step(q[:half], d[:half], 4.0, e[:half], *args[3:]),
+        charging.charge_step(q[half:], d[half:], 4.0, e[half:], *args[3:]),
+    ])
+    np.testing.assert_array_equal(whole, parts)

@@ -272,26 +272,44 @@ def _diffusion_update(qn, scale, rate, dt):
     return qn + scale * math.log1p(add * math.exp(-a))
 
 
+@numba.njit(cache=True)
+def _charge_one(q, d, eps, e, n_i, z_i, temp, m_i, dt, sign, do_field, do_diffusion):
+    """charge_step for one particle."""
+    qn = sign * q
+    scale = 1.0
+    rate = 0.0
+    if do_diffusion:
+        # White's rate law dq/dt = R exp(-q/Q), see _diffusion_scales
+        kt = BOLTZMANN * temp
+        scale = d * kt / (2.0 * COULOMB_K * _E)
+        speed = math.sqrt(8.0 * kt / (math.pi * m_i))
+        rate = _E * math.pi * d * d * speed * n_i / 4.0
+        qn = _diffusion_update(qn, scale, rate, 0.5 * dt)
+    if do_field:
+        qs = 3.0 * math.pi * EPSILON_0 * d * d * abs(e) / (1.0 + 2.0 / eps)
+        r = dt * n_i * _E * z_i / (4.0 * EPSILON_0)  # dt/tau, finite when N_i = 0
+        qn = _field_update(qn, qs, r)
+    if do_diffusion:
+        qn = _diffusion_update(qn, scale, rate, 0.5 * dt)
+    return sign * qn
+
+
+@numba.njit(cache=True)
+def _charge_serial(q, d, eps, e, n_i, z_i, temp, m_i, dt, sign, do_field, do_diffusion, out):
+    for i in range(q.shape[0]):
+        out[i] = _charge_one(q[i], d[i], eps[i], e[i], n_i[i], z_i[i], temp[i], m_i[i], dt[i], sign,
+                             do_field, do_diffusion)
+
+
 @numba.njit(cache=True, parallel=True)
-def _charge_kernel(q, d, eps, e, n_i, z_i, temp, m_i, dt, sign, do_field, do_diffusion, out):
-    """charge_step for each particle (inputs broadcast to one length)."""
+def _charge_parallel(q, d, eps, e, n_i, z_i, temp, m_i, dt, sign, do_field, do_diffusion, out):
     for i in numba.prange(q.shape[0]):
-        qn = sign * q[i]
-        di = d[i]
-        if do_diffusion:
-            # White's rate law dq/dt = R exp(-q/Q), see _diffusion_scales
-            kt = BOLTZMANN * temp[i]
-            scale = di * kt / (2.0 * COULOMB_K * _E)
-            speed = math.sqrt(8.0 * kt / (math.pi * m_i[i]))
-            rate = _E * math.pi * di * di * speed * n_i[i] / 4.0
-            qn = _diffusion_update(qn, scale, rate, 0.5 * dt[i])
-        if do_field:
-            qs = 3.0 * math.pi * EPSILON_0 * di * di * abs(e[i]) / (1.0 + 2.0 / eps[i])
-            r = dt[i] * n_i[i] * _E * z_i[i] / (4.0 * EPSILON_0)  # dt/tau, finite when N_i = 0
-            qn = _field_update(qn, qs, r)
-        if do_diffusion:
-            qn = _diffusion_update(qn, scale, rate, 0.5 * dt[i])
-        out[i] = sign * qn
+        out[i] = _charge_one(q[i], d[i], eps[i], e[i], n_i[i], z_i[i], temp[i], m_i[i], dt[i], sign,
+                             do_field, do_diffusion)
+
+
+#: Below this many particles the serial loop wins (starting threads costs more).
+PARALLEL_THRESHOLD = 20000
 
 
 def charge_step(
@@ -363,9 +381,12 @@ def charge_step(
     ]
     _eps_factor(args[2])  # the >= 1 check
     shape = np.broadcast_shapes(*(a.shape for a in args))
-    flat = [np.ascontiguousarray(np.broadcast_to(a, shape).reshape(-1)) for a in args]
+    # writeable C-contiguous float64 copies or views: one kernel signature, one compilation
+    flat = [np.require(a.reshape(-1), np.float64, ["C", "W"]) if a.shape == shape
+            else np.array(np.broadcast_to(a, shape), dtype=np.float64).reshape(-1) for a in args]
     out = np.empty(flat[0].shape[0])
-    _charge_kernel(*flat, float(ion_sign), bool(field_charging), bool(diffusion), out)
+    kernel = _charge_parallel if out.shape[0] >= PARALLEL_THRESHOLD else _charge_serial
+    kernel(*flat, float(ion_sign), bool(field_charging), bool(diffusion), out)
     return out.reshape(shape)
 
 

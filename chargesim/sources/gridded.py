@@ -8,17 +8,16 @@ from .base import FieldSource, as_vector
 _EDGE = 1e-9
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True)
 def _locate(pts, origin, spacing, shape, cell, frac):
     """Cell index and fractional position of each point; returns the first outside, or -1."""
-    m = pts.shape[0]
-    bad = np.full(m, False)
-    for i in numba.prange(m):
+    for i in range(pts.shape[0]):
+        bad = False
         for k in range(3):
             u = (pts[i, k] - origin[k]) / spacing[k]
             n = shape[k]
             if u < -_EDGE or u > (n - 1) + _EDGE:
-                bad[i] = True
+                bad = True
                 u = 0.0
             c = int(np.floor(u))
             if c < 0:
@@ -28,18 +27,20 @@ def _locate(pts, origin, spacing, shape, cell, frac):
             cell[i, k] = c
             f = u - c
             frac[i, k] = min(max(f, 0.0), 1.0)
-    for i in range(m):
-        if bad[i]:
-            return i
+        if bad:
+            return i  # the first point outside: the caller raises
     return -1
 
 
-@numba.njit(cache=True, parallel=True)
+@numba.njit(cache=True)
 def _trilinear(values, cell, frac, out):
-    """Trilinear interpolation of values (nx, ny, nz, c) at located points into out (m, c)."""
+    """Trilinear interpolation of values (nx, ny, nz, c) at located points into out (m, c).
+
+    Serial: a few multiply-adds per point, memory-bound; threads do not pay here.
+    """
     m = cell.shape[0]
     nc = values.shape[3]
-    for i in numba.prange(m):
+    for i in range(m):
         ix, iy, iz = cell[i, 0], cell[i, 1], cell[i, 2]
         fx, fy, fz = frac[i, 0], frac[i, 1], frac[i, 2]
         for c in range(nc):

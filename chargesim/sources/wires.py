@@ -102,70 +102,67 @@ class WireInTube(FieldSource):
         return params, outlines
 
 
-@numba.njit(cache=True, parallel=True)
-def _wire_plate_kernel(x, y, y_first, spacing, lam, beta, s, a, voltage, period, xi_cut, need_field, need_pot,
-                       fx, fy, pot):
-    """Field and potential (without 1/(4 pi eps0)) of wires between grounded plates.
+@numba.njit(cache=True)
+def _wire_plate_point(xi, yi, y_first, spacing, lam, beta, s, a, voltage, period, xi_cut, need_pot):
+    """(E_x, E_y, phi) at one point, without the factor 1/(4 pi eps0).
 
     x is measured from the centre plane, y from the first wire; wire j sits at
     y_first + j spacing with line charge lam[j]. With period > 0 the row is
     infinite: y is folded into one period and the wires are the copies kept by
     the tolerance. Only wires within beta |dy| <= xi_cut are visited.
     """
-    m = x.shape[0]
+    if abs(xi) > s:
+        return 0.0, 0.0, 0.0
+    if period > 0.0:
+        yi -= period * np.floor(yi / period + 0.5)
     nw = lam.shape[0]
-    a2 = a * a
     reach = xi_cut / beta
-    for i in numba.prange(m):
-        xi = x[i]
-        if abs(xi) > s:
-            if need_field:
-                fx[i] = 0.0
-                fy[i] = 0.0
-            if need_pot:
-                pot[i] = 0.0
-            continue
-        yi = y[i]
-        if period > 0.0:
-            yi -= period * np.floor(yi / period + 0.5)
-        j0 = max(0, int(math.ceil((yi - reach - y_first) / spacing)))
-        j1 = min(nw - 1, int(math.floor((yi + reach - y_first) / spacing)))
-        bx = beta * xi
-        cx = math.cos(bx)
-        sx = math.sin(bx)
-        hs = math.sin(0.5 * bx)
-        hs2 = hs * hs
-        phi = 0.0
-        ex = 0.0
-        ey = 0.0
-        inside = False
-        for j in range(j0, j1 + 1):
-            dy = yi - (y_first + j * spacing)
-            if xi * xi + dy * dy < a2:
-                inside = True
-                break
-            # cosh and sinh of xi/2 from one expm1, without cancellation near the wire
-            e1 = math.expm1(0.5 * beta * dy)
-            eh = 1.0 + e1
-            sh2 = 0.5 * e1 * (e1 + 2.0) / eh
-            ch2 = 0.5 * (eh + 1.0 / eh)
-            # D = cosh(xi) - cos(bx), N = cosh(xi) + cos(bx)
-            d = 2.0 * (sh2 * sh2 + hs2)
-            if need_pot:
-                phi += lam[j] * math.log1p(2.0 * cx / d)
-            if need_field:
-                n = 2.0 * (ch2 * ch2 - hs2)
-                ex += lam[j] * beta * sx * (1.0 / n + 1.0 / d)
-                ey -= lam[j] * beta * (2.0 * sh2 * ch2) * (1.0 / n - 1.0 / d)
-        if inside:
-            ex = 0.0
-            ey = 0.0
-            phi = voltage
-        if need_field:
-            fx[i] = ex
-            fy[i] = ey
+    j0 = max(0, int(math.ceil((yi - reach - y_first) / spacing)))
+    j1 = min(nw - 1, int(math.floor((yi + reach - y_first) / spacing)))
+    bx = beta * xi
+    cx = math.cos(bx)
+    sx = math.sin(bx)
+    hs = math.sin(0.5 * bx)
+    hs2 = hs * hs
+    a2 = a * a
+    phi = 0.0
+    ex = 0.0
+    ey = 0.0
+    for j in range(j0, j1 + 1):
+        dy = yi - (y_first + j * spacing)
+        if xi * xi + dy * dy < a2:
+            return 0.0, 0.0, voltage  # inside a wire: its potential, no field
+        # cosh and sinh of xi/2 from one expm1, without cancellation near the wire
+        e1 = math.expm1(0.5 * beta * dy)
+        eh = 1.0 + e1
+        sh2 = 0.5 * e1 * (e1 + 2.0) / eh
+        ch2 = 0.5 * (eh + 1.0 / eh)
+        # D = cosh(xi) - cos(bx), N = cosh(xi) + cos(bx)
+        d = 2.0 * (sh2 * sh2 + hs2)
+        n = 2.0 * (ch2 * ch2 - hs2)
         if need_pot:
-            pot[i] = phi
+            phi += lam[j] * math.log1p(2.0 * cx / d)
+        ex += lam[j] * beta * sx * (1.0 / n + 1.0 / d)
+        ey -= lam[j] * beta * (2.0 * sh2 * ch2) * (1.0 / n - 1.0 / d)
+    return ex, ey, phi
+
+
+@numba.njit(cache=True)
+def _wire_plate_serial(x, y, y_first, spacing, lam, beta, s, a, voltage, period, xi_cut, need_pot, fx, fy, pot):
+    for i in range(x.shape[0]):
+        fx[i], fy[i], pot[i] = _wire_plate_point(x[i], y[i], y_first, spacing, lam, beta, s, a, voltage, period,
+                                                 xi_cut, need_pot)
+
+
+@numba.njit(cache=True, parallel=True)
+def _wire_plate_parallel(x, y, y_first, spacing, lam, beta, s, a, voltage, period, xi_cut, need_pot, fx, fy, pot):
+    for i in numba.prange(x.shape[0]):
+        fx[i], fy[i], pot[i] = _wire_plate_point(x[i], y[i], y_first, spacing, lam, beta, s, a, voltage, period,
+                                                 xi_cut, need_pot)
+
+
+#: Below this many points the serial loop wins (starting threads costs more).
+PARALLEL_THRESHOLD = 4000
 
 
 class WirePlateChannel(FieldSource):
@@ -274,16 +271,15 @@ class WirePlateChannel(FieldSource):
         """Voltage over wire-to-plate distance, V/m (the usual design figure)."""
         return abs(self.voltage) / self.plate_distance
 
-    def _eval(self, pts, need_field=True, need_pot=True):
+    def _eval(self, pts, need_pot=True):
         x = np.ascontiguousarray(pts[:, 0] - self.origin[0])
         y = np.ascontiguousarray(pts[:, 1] - self.origin[1])
         m = pts.shape[0]
-        fx, fy = (np.empty(m), np.empty(m)) if need_field else (np.empty(0), np.empty(0))
-        pot = np.empty(m) if need_pot else np.empty(0)
-        _wire_plate_kernel(x, y, float(self._wire_y[0]), self.wire_spacing, self._lam, self.beta,
-                           self.plate_distance, self.wire_radius, self.voltage / self._scale,
-                           self.wire_spacing if self.periodic else 0.0, self._xi_cut, need_field, need_pot,
-                           fx, fy, pot)
+        fx, fy, pot = np.empty(m), np.empty(m), np.empty(m)
+        kernel = _wire_plate_parallel if m >= PARALLEL_THRESHOLD else _wire_plate_serial
+        kernel(x, y, float(self._wire_y[0]), self.wire_spacing, self._lam, self.beta, self.plate_distance,
+               self.wire_radius, self.voltage / self._scale, self.wire_spacing if self.periodic else 0.0,
+               self._xi_cut, need_pot, fx, fy, pot)
         return fx * self._scale, fy * self._scale, pot * self._scale
 
     def _field(self, pts):
@@ -294,7 +290,7 @@ class WirePlateChannel(FieldSource):
         return out
 
     def _potential(self, pts):
-        return self._eval(pts, need_field=False)[2]
+        return self._eval(pts)[2]
 
     def field_and_potential(self, points):
         """Field (V/m, (M, 3)) and potential (V, (M,)) from one pass."""

@@ -220,3 +220,16 @@ def test_describe_has_outlines():
 def test_validation(make, name):
     with pytest.raises(ValueError, match=name):
         make()
+
+
+def test_wire_plate_threaded_path_matches_serial_path():
+    from chargesim.sources import wires
+
+    src = WirePlateChannel(-40e3, 1e-3, 0.15, 0.2, n_wires=6)
+    n = wires.PARALLEL_THRESHOLD + 7
+    rng = np.random.default_rng(9)
+    pts = np.column_stack([rng.uniform(-0.15, 0.15, n), rng.uniform(-0.2, 1.3, n), np.zeros(n)])
+    half = n // 2
+    np.testing.assert_array_equal(src.field(pts), np.vstack([src.field(pts[:half]), src.field(pts[half:])]))
+    np.testing.assert_array_equal(src.potential(pts),
+                                  np.concatenate([src.potential(pts[:half]), src.potential(pts[half:])]))

@@ -109,7 +109,8 @@ class FieldSource:
             coordinates: ``{"shape": "plane", "point", "normal"}``,
             ``{"shape": "cylinder", "point", "axis", "radius"}`` (infinite
             unless it has ``length``, then ``point`` is the middle),
-            ``{"shape": "box", "low", "high"}``.
+            ``{"shape": "box", "low", "high"}`` (a flat box is a finite plate),
+            ``{"shape": "sphere", "centre", "radius"}``.
         """
         params, outlines = self._geometry()
         return {"kind": type(self).__name__, "name": self.name, "parameters": params, "outlines": outlines}

@@ -51,26 +51,42 @@ Numba helpers (``njit``, callable from other kernels):
     (cell coordinate in 0..n-1, shift in m): the image of the particles of
     an unwrapped cell c is at their stored coordinate **plus** the shift.
 ``segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, shift)``
-    The cells within rc (<= the grid's cutoff) of a point as slot ranges
-    ``lo[g]:hi[g]`` with image shifts ``shift[g, :]`` (a run of cells along
-    z is one range; cells out of reach of the point are pruned); returns the
-    count. Buffers of length ``max_segments(reach)``, allocated once per chunk
-    of ``CHUNK`` points, not per point.
+    Per point: the cells within rc (<= the grid's cutoff) of a point as slot
+    ranges ``lo[g]:hi[g]`` with image shifts ``shift[g, :]`` (a run of cells
+    along z is one range; cells out of reach of the point are pruned);
+    returns the count. Buffers of length ``max_segments(reach)``.
+``cell_segments(cx, cy, cz, start, shape, box, periodic, reach, lo, hi, shift)``
+    Per cell: the same for the whole stencil of a cell, which holds every
+    source within the cutoff of any point in the cell.
+``gather(nseg, lo, hi, shift, points, bx, by, bz, bslot)``, ``segment_total(nseg, lo, hi)``
+    Copy the segments' sources (image coordinates, slots) into contiguous
+    buffers, and the number of them.
+``cell_coords(c, shape)``
+    (cx, cy, cz) of a cell index.
 
-The visiting pattern (as in this module's pair kernel)::
+``bin_targets(targets, cells) -> (points, order, start)`` sorts separate
+targets into the source grid's cells the same way (targets of an open grid
+beyond the stencil's reach are left out: no source is within the cutoff).
+Kernels below ``PARALLEL_MIN`` points run serially.
 
-    for chunk in numba.prange((m + CHUNK - 1) // CHUNK):
+The visiting pattern used by the pair and cutoff kernels (per cell: the
+stencil's sources are copied once into contiguous buffers, then each target of
+the cell sweeps them in a long loop that vectorises)::
+
+    for chunk in numba.prange((ncell + CELL_CHUNK - 1) // CELL_CHUNK):
         lo = np.empty(max_segments(reach), np.int64); hi = ...; sh = np.empty((..., 3))
-        for t in range(chunk * CHUNK, min(m, (chunk + 1) * CHUNK)):
-            x, y, z = ...                      # wrap_point(...) first when periodic
-            nseg = segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, sh)
-            for g in range(nseg):
-                for s in range(lo[g], hi[g]):
-                    dx = x - (points[0, s] + sh[g, 0])   # and y, z
-                    ...                        # order[s] is the input index
+        for c in range(chunk * CELL_CHUNK, min(ncell, (chunk + 1) * CELL_CHUNK)):
+            cx, cy, cz = cell_coords(c, shape)
+            nseg = cell_segments(cx, cy, cz, start, shape, box, periodic, reach, lo, hi, sh)
+            # grow bx, by, bz, bs to segment_total(nseg, lo, hi) if needed
+            k = gather(nseg, lo, hi, sh, points, bx, by, bz, bs)
+            for t in range(tstart[c], tstart[c + 1]):         # the targets of cell c
+                for u in range(k):
+                    dx = tpoints[0, t] - bx[u]                 # and y, z; slot bs[u]
+                    ...                                        # order[bs[u]]: input index
 
-Each point's neighbours come in a fixed order whatever the thread count, so a
-sum per point in one thread is bitwise reproducible.
+Each target's sources come in a fixed order whatever the thread count, so a
+sum per target in one thread is bitwise reproducible.
 
 In a periodic box a small grid (fewer than 2 reach + 1 cells on an axis)
 visits the same cell more than once, each time with a different shift: each
@@ -160,28 +176,43 @@ def wrap(c, n, length, periodic):
     return c - m * n, m * length
 
 
-@numba.njit(parallel=True, cache=True)
-def _cell_ids(pos, origin, width, shape, box, periodic, reach, drop_far, cell):
-    """Cell of each point; -1 for points out of reach of an open grid (drop_far)."""
+#: Below this many points kernels run serially: starting threads costs more
+#: than it saves there (and much more on a busy machine).
+PARALLEL_MIN = 4096
+
+
+@numba.njit(inline="always")
+def _cell_id(i, pos, origin, width, shape, box, periodic, reach, drop_far, cell):
     ny, nz = shape[1], shape[2]
+    x, y, z = pos[i, 0], pos[i, 1], pos[i, 2]
+    if periodic:
+        x = wrap_point(x, box[0])
+        y = wrap_point(y, box[1])
+        z = wrap_point(z, box[2])
+    kx, ky, kz = locate(x, y, z, origin, width, shape, periodic)
+    if drop_far and (kx < -reach or ky < -reach or kz < -reach or kx >= shape[0] + reach
+                     or ky >= ny + reach or kz >= nz + reach):
+        # no source of the grid can be within the cutoff
+        cell[i] = -1
+        return
+    # sources: clamp only against rounding; near targets: their stencil from
+    # the clamped cell still covers every source within the cutoff
+    kx = min(max(kx, 0), shape[0] - 1)
+    ky = min(max(ky, 0), ny - 1)
+    kz = min(max(kz, 0), nz - 1)
+    cell[i] = (kx * ny + ky) * nz + kz
+
+
+@numba.njit(parallel=True, cache=True)
+def _cell_ids_parallel(pos, origin, width, shape, box, periodic, reach, drop_far, cell):
     for i in numba.prange(pos.shape[0]):
-        x, y, z = pos[i, 0], pos[i, 1], pos[i, 2]
-        if periodic:
-            x = wrap_point(x, box[0])
-            y = wrap_point(y, box[1])
-            z = wrap_point(z, box[2])
-        kx, ky, kz = locate(x, y, z, origin, width, shape, periodic)
-        if drop_far and (kx < -reach or ky < -reach or kz < -reach or kx >= shape[0] + reach
-                         or ky >= ny + reach or kz >= nz + reach):
-            # no source of the grid can be within the cutoff
-            cell[i] = -1
-            continue
-        # sources: clamp only against rounding; near targets: their stencil
-        # from the clamped cell still covers every source within the cutoff
-        kx = min(max(kx, 0), shape[0] - 1)
-        ky = min(max(ky, 0), ny - 1)
-        kz = min(max(kz, 0), nz - 1)
-        cell[i] = (kx * ny + ky) * nz + kz
+        _cell_id(i, pos, origin, width, shape, box, periodic, reach, drop_far, cell)
+
+
+@numba.njit(cache=True)
+def _cell_ids_serial(pos, origin, width, shape, box, periodic, reach, drop_far, cell):
+    for i in range(pos.shape[0]):
+        _cell_id(i, pos, origin, width, shape, box, periodic, reach, drop_far, cell)
 
 
 @numba.njit(cache=True)
@@ -217,7 +248,8 @@ def _sort(pos, origin, width, shape, box, periodic, reach, drop_far):
     cell = np.empty(n, np.int64)
     start = np.zeros(int(np.prod(shape)) + 1, np.int64)
     if n:
-        _cell_ids(pos, origin, width, shape, box, periodic, reach, drop_far, cell)
+        ids = _cell_ids_parallel if n >= PARALLEL_MIN else _cell_ids_serial
+        ids(pos, origin, width, shape, box, periodic, reach, drop_far, cell)
     kept = n if not drop_far else int(np.count_nonzero(cell >= 0))
     points = np.empty((3, kept))
     order = np.empty(kept, np.int64)
@@ -464,46 +496,79 @@ def segment_total(nseg, lo, hi):
     return k
 
 
-#: Points handled per buffer allocation in the parallel kernels.
-CHUNK = 256
+#: Cells handled per buffer allocation in the parallel per-cell kernels.
+CELL_CHUNK = 32
 
 
-@numba.njit(parallel=True, cache=True)
-def _pair_rows(points, order, start, shape, width, origin, box, periodic, reach, rc, offsets, jj):
-    """Count (jj empty) or store the neighbours j > i of every point i."""
-    n = order.size
+@numba.njit(inline="always")
+def cell_coords(c, shape):
+    """(cx, cy, cz) of cell index c = (cx * ny + cy) * nz + cz."""
+    nz = shape[2]
+    ny = shape[1]
+    return c // (ny * nz), (c // nz) % ny, c % nz
+
+
+@numba.njit(inline="always")
+def _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, offsets, jj):
+    """Count (jj empty) or store the neighbours j > i of the points of a chunk of cells."""
+    ncell = start.size - 1
     rc2 = rc * rc
     store = jj.size > 0
-    px, py, pz = points[0], points[1], points[2]
-    m = max_segments(reach)
-    for chunk in numba.prange((n + CHUNK - 1) // CHUNK):
-        lo = np.empty(m, np.int64)
-        hi = np.empty(m, np.int64)
-        sh = np.empty((m, 3))
-        for t in range(chunk * CHUNK, min(n, (chunk + 1) * CHUNK)):
+    nbuf = max_segments(reach)
+    lo = np.empty(nbuf, np.int64)
+    hi = np.empty(nbuf, np.int64)
+    sh = np.empty((nbuf, 3))
+    cap = 0
+    bx = np.empty(cap)
+    by = np.empty(cap)
+    bz = np.empty(cap)
+    bs = np.empty(cap, np.int64)
+    for c in range(chunk * CELL_CHUNK, min(ncell, (chunk + 1) * CELL_CHUNK)):
+        if start[c + 1] == start[c]:
+            continue
+        cx, cy, cz = cell_coords(c, shape)
+        nseg = cell_segments(cx, cy, cz, start, shape, box, periodic, reach, lo, hi, sh)
+        tot = segment_total(nseg, lo, hi)
+        if tot > cap:
+            cap = 2 * tot
+            bx = np.empty(cap)
+            by = np.empty(cap)
+            bz = np.empty(cap)
+            bs = np.empty(cap, np.int64)
+        k = gather(nseg, lo, hi, sh, points, bx, by, bz, bs)
+        for u in range(k):
+            bs[u] = order[bs[u]]  # input indices from here on
+        for t in range(start[c], start[c + 1]):
             i = order[t]
-            x, y, z = px[t], py[t], pz[t]
-            nseg = segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, sh)
+            x, y, z = points[0, t], points[1, t], points[2, t]
             b = offsets[i] if store else 0
             cnt = 0
-            for g in range(nseg):
-                shx, shy, shz = sh[g, 0], sh[g, 1], sh[g, 2]
-                for s in range(lo[g], hi[g]):
-                    j = order[s]
-                    if j <= i:
-                        continue
-                    dx = x - (px[s] + shx)
-                    dy = y - (py[s] + shy)
-                    dz = z - (pz[s] + shz)
-                    if dx * dx + dy * dy + dz * dz < rc2:
-                        if store:
-                            jj[b + cnt] = j
-                        cnt += 1
+            for u in range(k):
+                j = bs[u]
+                dx = x - bx[u]
+                dy = y - by[u]
+                dz = z - bz[u]
+                if j > i and dx * dx + dy * dy + dz * dz < rc2:
+                    if store:
+                        jj[b + cnt] = j
+                    cnt += 1
             if store:
                 # neighbours arrive in cell order: sort each row for a stable output
                 jj[b:b + cnt] = np.sort(jj[b:b + cnt])
             else:
                 offsets[i + 1] = cnt
+
+
+@numba.njit(parallel=True, cache=True)
+def _pair_rows_parallel(points, order, start, shape, box, periodic, reach, rc, offsets, jj):
+    for chunk in numba.prange((start.size - 1 + CELL_CHUNK - 1) // CELL_CHUNK):
+        _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, offsets, jj)
+
+
+@numba.njit(cache=True)
+def _pair_rows_serial(points, order, start, shape, box, periodic, reach, rc, offsets, jj):
+    for chunk in range((start.size - 1 + CELL_CHUNK - 1) // CELL_CHUNK):
+        _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, offsets, jj)
 
 
 def pairs(positions, cutoff, box=None):
@@ -531,15 +596,16 @@ def pairs(positions, cutoff, box=None):
     """
     cells = build(positions, cutoff, box)
     n = cells.order.size
-    args = (cells.points, cells.order, cells.start, cells.shape, cells.width, cells.origin,
-            cells.box, cells.periodic, cells.reach, cells.cutoff)
+    args = (cells.points, cells.order, cells.start, cells.shape, cells.box, cells.periodic,
+            cells.reach, cells.cutoff)
+    rows = _pair_rows_parallel if n >= PARALLEL_MIN else _pair_rows_serial
     offsets = np.zeros(n + 1, np.int64)
     if n:
-        _pair_rows(*args, offsets, np.empty(0, np.int64))  # counts into offsets[1:]
+        rows(*args, offsets, np.empty(0, np.int64))  # counts into offsets[1:]
     counts = offsets[1:].copy()
     np.cumsum(counts, out=offsets[1:])
     jj = np.empty(int(offsets[-1]), np.int64)
     if jj.size:
-        _pair_rows(*args, offsets, jj)
+        rows(*args, offsets, jj)
     ii = np.repeat(np.arange(n, dtype=np.int64), counts)
     return ii, jj

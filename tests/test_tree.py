@@ -1,0 +1,306 @@
+"""The tree evaluator against the direct sum, fmm3dpy and exact results.
+
+The error measure throughout is the rms relative error of the field over the
+checked targets,
+
+    err = sqrt(sum_i |E_i - E_ref,i|^2 / sum_i |E_ref,i|^2),
+
+the quantity the ``accuracy`` option asks for. References: the direct sum
+(Coulomb's law and superposition, chargesim.coulomb.direct, itself checked
+against textbook results and fmm3dpy in test_direct.py), fmm3dpy (general-
+purpose reference library for Laplace sums), and exact results named beside
+each check. Sources are named beside each check (see REFERENCES.md).
+"""
+import numba
+import numpy as np
+import pytest
+
+import chargesim
+from chargesim.coulomb import direct, tree
+from chargesim.physics.constants import COULOMB_K as K  # CODATA 2018, derived
+
+SEED = 20261207
+
+
+def _rng(k=0):
+    return np.random.default_rng(SEED + k)
+
+
+def _uniform(rng, n):
+    return rng.random((n, 3))
+
+
+def _clustered(rng, n):
+    # Gaussian clumps of widths over a decade, and a thin uniform background:
+    # deep, unbalanced trees as in a spray plume
+    k = 12
+    centres = rng.random((k, 3))
+    widths = 10.0 ** rng.uniform(-2.5, -1.0, k)
+    which = rng.integers(0, k, n)
+    pos = centres[which] + rng.normal(size=(n, 3)) * widths[which, None]
+    back = rng.random(n) < 0.05
+    pos[back] = rng.random((int(back.sum()), 3))
+    return pos
+
+
+def _mixed(rng, n, positive_fraction=0.5):
+    sign = np.where(rng.random(n) < positive_fraction, 1.0, -1.0)
+    return sign * (0.5 + rng.random(n)) * 1e-12
+
+
+def _self_reference(pos, q, idx, block=8):
+    """Direct field and potential at particles ``idx`` from all others (numpy)."""
+    e = np.empty((idx.size, 3))
+    p = np.empty(idx.size)
+    for lo in range(0, idx.size, block):
+        ii = idx[lo : lo + block]
+        d = pos[ii, None, :] - pos[None, :, :]
+        r2 = np.einsum("ijk,ijk->ij", d, d)
+        r2[np.arange(ii.size), ii] = np.inf  # no self term
+        inv = 1.0 / np.sqrt(r2)
+        e[lo : lo + block] = np.einsum("ij,ijk->ik", q * inv**3, d)
+        p[lo : lo + block] = (q * inv).sum(axis=1)
+    return e, p
+
+
+def _err(a, ref):
+    return float(np.sqrt(np.sum((a - ref) ** 2) / np.sum(ref**2)))
+
+
+_CASES = {}
+
+
+def _case(kind, n):
+    """Positions, charges, sampled indices and their direct reference (cached)."""
+    key = (kind, n)
+    if key not in _CASES:
+        rng = _rng({"uniform": 20, "clustered": 21, "one-sign": 22}[kind] + n)
+        if kind == "uniform":
+            pos, q = _uniform(rng, n), None
+        elif kind == "clustered":
+            pos, q = _clustered(rng, n), None
+        else:  # one-sign cloud (space charge of a unipolar spray): hardest for cancellation-free sums
+            pos, q = _clustered(rng, n), np.abs(_mixed(rng, n))
+        if q is None:
+            q = _mixed(rng, n)
+        idx = np.sort(rng.choice(n, 300, replace=False))
+        e, p = _self_reference(pos, q, idx)
+        _CASES[key] = (pos, q, idx, e, p)
+    return _CASES[key]
+
+
+@pytest.mark.parametrize("accuracy", [1e-2, 1e-3, 1e-4])
+@pytest.mark.parametrize("kind", ["uniform", "clustered"])
+def test_rms_error_within_accuracy_mixed_sign(kind, accuracy):
+    # reference: direct sum (Coulomb's law + superposition) on 300 sampled particles
+    pos, q, idx, e_ref, p_ref = _case(kind, 30_000)
+    e, p = tree.evaluate(pos, q, None, None, accuracy=accuracy)
+    assert _err(e[idx], e_ref) <= accuracy
+    # the potential is a smoother sum; its rms relative error is checked at
+    # twice the asked field accuracy
+    assert _err(p[idx], p_ref) <= 2 * accuracy
+
+
+def test_rms_error_1e5_clustered():
+    # reference: direct sum on 300 sampled particles of 1e5 clustered mixed-sign charges
+    pos, q, idx, e_ref, _ = _case("clustered", 100_000)
+    e, _ = tree.evaluate(pos, q, None, None, need_potential=False, accuracy=1e-3)
+    assert _err(e[idx], e_ref) <= 1e-3
+
+
+@pytest.mark.parametrize("accuracy", [1e-2, 1e-3])
+def test_rms_error_one_sign_cloud(accuracy):
+    # reference: direct sum; all charges of one sign (no cancellation in the far field)
+    pos, q, idx, e_ref, p_ref = _case("one-sign", 30_000)
+    e, p = tree.evaluate(pos, q, None, None, accuracy=accuracy)
+    assert _err(e[idx], e_ref) <= accuracy
+    assert _err(p[idx], p_ref) <= accuracy
+
+
+def test_separate_targets_against_direct():
+    # reference: direct sum (numba kernel) at probe points that are not particles
+    rng = _rng(1)
+    pos = _clustered(rng, 20_000)
+    q = _mixed(rng, 20_000)
+    tgt = rng.random((3000, 3)) * 1.2 - 0.1
+    e_ref, p_ref = direct.evaluate(pos, q, tgt, None)
+    for acc in (1e-2, 1e-3, 1e-4):
+        e, p = tree.evaluate(pos, q, tgt, None, accuracy=acc)
+        assert _err(e, e_ref) <= acc
+        assert _err(p, p_ref) <= acc
+
+
+def test_against_fmm3dpy_clustered():
+    # fmm3dpy (general-purpose reference library): Laplace sums at eps = 1e-7;
+    # fmm3dpy's pot is sum q / (4 pi r) and grad its gradient, so field = -4 pi grad.
+    # (n kept small: fmm3dpy is slow on deep clustered trees)
+    fmm3dpy = pytest.importorskip("fmm3dpy")
+    rng = _rng(2)
+    n = 5000
+    pos = _clustered(rng, n)
+    q = _mixed(rng, n) * 1e12
+    out = fmm3dpy.lfmm3d(eps=1e-7, sources=np.ascontiguousarray(pos.T), charges=q, pg=2)
+    e_ref = -4 * np.pi * out.grad.T
+    p_ref = 4 * np.pi * out.pot
+    for acc in (1e-2, 1e-3, 1e-4):
+        e, p = tree.evaluate(pos, q, None, None, accuracy=acc)
+        assert _err(e, e_ref) <= acc
+        assert _err(p, p_ref) <= 2 * acc
+
+
+def test_total_force_vanishes():
+    # Newton's third law: internal forces sum to zero; with the tree the
+    # balance holds to the asked accuracy relative to sum |F_i|
+    rng = _rng(3)
+    pos = _clustered(rng, 20_000)
+    q = _mixed(rng, 20_000)
+    for acc in (1e-2, 1e-3):
+        f = chargesim.forces(pos, q, method="tree", accuracy=acc)
+        assert np.linalg.norm(f.sum(axis=0)) <= acc * np.linalg.norm(f, axis=1).sum()
+
+
+def test_zero_charges():
+    # exact: no charge, no field
+    rng = _rng(4)
+    pos = rng.random((5000, 3))
+    e, p = tree.evaluate(pos, np.zeros(5000), None, None)
+    assert np.all(e == 0) and np.all(p == 0)
+
+
+def test_one_particle():
+    # Coulomb's law: one charge has no self field; at a probe E = q r / r^3
+    e, p = tree.evaluate(np.array([[0.1, 0.2, 0.3]]), np.array([2.0]), None, None)
+    assert np.all(e == 0) and np.all(p == 0)
+    tgt = np.array([[1.1, 0.2, 0.3], [0.1, -0.3, 0.3]])
+    e, p = tree.evaluate(np.array([[0.1, 0.2, 0.3]]), np.array([2.0]), tgt, None)
+    np.testing.assert_allclose(e, [[2.0, 0, 0], [0, -8.0, 0]], rtol=1e-14, atol=1e-14)
+    np.testing.assert_allclose(p, [2.0, 4.0], rtol=1e-14)
+
+
+def test_tiny_cloud():
+    # reference: direct sum; 3000 particles within 1e-12 m, 1 m from the origin
+    rng = _rng(5)
+    pos = np.array([1.0, -0.5, 0.25]) + rng.random((3000, 3)) * 1e-12
+    q = _mixed(rng, 3000)
+    e_ref, p_ref = direct.evaluate(pos, q, None, None)
+    e, p = tree.evaluate(pos, q, None, None, accuracy=1e-3)
+    assert _err(e, e_ref) <= 1e-3
+    assert _err(p, p_ref) <= 1e-3
+    # far probes see the cloud as one point charge (exact to ~1e-12 relative)
+    tgt = np.array([[3.0, -0.5, 0.25], [1.0, 2.5, 0.25]])
+    e, _ = tree.evaluate(pos, q, tgt, None)
+    d = tgt - pos[0]
+    exact = q.sum() * d / np.linalg.norm(d, axis=1)[:, None] ** 3
+    np.testing.assert_allclose(e, exact, rtol=1e-9, atol=1e-9 * np.abs(exact).max())
+
+
+def test_points_on_a_plane():
+    # reference: direct sum; a flat layer (zero extent in z), probes off the plane
+    rng = _rng(6)
+    n = 8000
+    pos = np.column_stack([rng.random(n), rng.random(n), np.full(n, 0.3)])
+    q = _mixed(rng, n)
+    e_ref, p_ref = direct.evaluate(pos, q, None, None)
+    e, p = tree.evaluate(pos, q, None, None, accuracy=1e-3)
+    assert np.all(e[:, 2] == 0)  # by symmetry, exactly: every term has dz = 0
+    assert _err(e, e_ref) <= 1e-3 and _err(p, p_ref) <= 1e-3
+    tgt = rng.random((500, 3))
+    e_ref, _ = direct.evaluate(pos, q, tgt, None)
+    e, _ = tree.evaluate(pos, q, tgt, None, accuracy=1e-3)
+    assert _err(e, e_ref) <= 1e-3
+
+
+def test_finite_radii_against_direct():
+    # reference: direct sum with the uniformly-charged-sphere kernel (contract in
+    # DEVELOPERS.md); a dense clump where many spheres overlap
+    rng = _rng(7)
+    n = 6000
+    pos = _clustered(rng, n)
+    q = _mixed(rng, n)
+    radii = rng.uniform(0.0, 5e-3, n)
+    pos[1] = pos[0]  # coincident finite spheres are legitimate
+    e_ref, p_ref = direct.evaluate(pos, q, None, radii)
+    e, p = tree.evaluate(pos, q, None, radii, accuracy=1e-3)
+    assert _err(e, e_ref) <= 1e-3 and _err(p, p_ref) <= 1e-3
+    tgt = np.vstack([pos[:50] + 1e-4, rng.random((500, 3))])
+    e_ref, p_ref = direct.evaluate(pos, q, tgt, radii)
+    e, p = tree.evaluate(pos, q, tgt, radii, accuracy=1e-3)
+    assert _err(e, e_ref) <= 1e-3 and _err(p, p_ref) <= 1e-3
+
+
+def test_coincident_points_raise():
+    # contract (DEVELOPERS.md): a target exactly on a point source is an error naming both
+    rng = _rng(8)
+    pos = rng.random((3000, 3))
+    pos[2000] = pos[17]
+    with pytest.raises(ValueError, match="particle 17 coincides with source particle 2000"):
+        tree.evaluate(pos, np.ones(3000), None, None)
+    with pytest.raises(ValueError, match="target 1 coincides with source particle 5"):
+        tree.evaluate(pos, np.ones(3000), np.array([[2.0, 2.0, 2.0], pos[5]]), None)
+
+
+def test_front_door_potential_energy():
+    # reference: direct sum through the same front door (k/eps_r, 1/2 sum q phi)
+    rng = _rng(9)
+    n = 12_000
+    pos = _clustered(rng, n)
+    q = _mixed(rng, n)
+    acc = 1e-3
+    e_t = chargesim.field(pos, q, method="tree", accuracy=acc, eps_r=2.0)
+    e_d = chargesim.field(pos, q, method="direct", eps_r=2.0)
+    assert _err(e_t, e_d) <= acc
+    p_t = chargesim.potential(pos, q, method="tree", accuracy=acc)
+    p_d = chargesim.potential(pos, q, method="direct")
+    assert _err(p_t, p_d) <= acc
+    w_t = chargesim.energy(pos, q, method="tree", accuracy=acc)
+    w_d = chargesim.energy(pos, q, method="direct")
+    # mixed signs cancel in 1/2 sum q_i phi_i: the error is measured against
+    # the sum of the absolute terms, 1/2 sum |q_i phi_i|
+    assert abs(w_t - w_d) <= acc * 0.5 * np.sum(np.abs(q * p_d))
+
+
+def test_tree_reuse_order_and_reproducibility():
+    # reuse: one tree, several target sets, equal to fresh evaluations; the
+    # result does not depend on the target order (Morton sort inside) nor on
+    # the thread count (each target summed in one fixed order)
+    rng = _rng(10)
+    pos = _clustered(rng, 20_000)
+    q = _mixed(rng, 20_000)
+    t = tree.Tree(pos, q)
+    g1 = rng.random((2000, 3))
+    g2 = rng.random((700, 3)) * 0.1 + 0.45
+    e1, p1 = t.evaluate(g1)
+    e2, _ = t.evaluate(g2)
+    np.testing.assert_array_equal(e1, tree.evaluate(pos, q, g1, None)[0])
+    np.testing.assert_array_equal(e2, tree.evaluate(pos, q, g2, None)[0])
+    perm = rng.permutation(2000)
+    e1p, p1p = t.evaluate(g1[perm])
+    np.testing.assert_array_equal(e1p, e1[perm])
+    np.testing.assert_array_equal(p1p, p1[perm])
+    es, _ = t.evaluate()
+    old = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        es1, _ = t.evaluate()
+    finally:
+        numba.set_num_threads(old)
+    np.testing.assert_array_equal(es, es1)
+    # the convenience methods apply k/eps_r
+    np.testing.assert_allclose(t.field(g2, eps_r=3.0), e2 * K / 3.0, rtol=1e-15)
+
+
+def test_accuracy_option_checked_and_auto_uses_crossover():
+    # front door: a bad accuracy names the argument; auto picks the tree at the crossover
+    with pytest.raises(ValueError, match="accuracy"):
+        tree.evaluate(np.zeros((2, 3)) + [[0, 0, 0], [1, 0, 0]], np.ones(2), None, None, accuracy=-1.0)
+    assert isinstance(tree.CROSSOVER, int) and tree.CROSSOVER > 0
+    assert chargesim.coulomb.method_for(tree.CROSSOVER) == "tree"
+    assert chargesim.coulomb.method_for(tree.CROSSOVER - 1) == "direct"
+
+
+def test_memory_per_particle():
+    # issue goal: at most 500 bytes per particle held by the tree
+    rng = _rng(11)
+    pos = _clustered(rng, 50_000)
+    t = tree.Tree(pos, _mixed(rng, 50_000))
+    assert t.nbytes / 50_000 < 500

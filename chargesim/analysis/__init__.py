@@ -10,6 +10,7 @@ from .efficiency import (
     deposition_density,
     deposition_map,
     grade_efficiency,
+    grade_efficiency_from_results,
     real_mass,
     transfer_efficiency,
 )
@@ -20,6 +21,7 @@ __all__ = [
     "deposition_density",
     "deposition_map",
     "grade_efficiency",
+    "grade_efficiency_from_results",
     "real_mass",
     "transfer_efficiency",
 ]

@@ -177,6 +177,29 @@ def grade_efficiency(deposits, escapes, edges, *, airborne=None, surfaces=None, 
             "efficiency": eff, "collected": col, "total": total, "n_simulated": n_sim, "stderr": stderr}
 
 
+def grade_efficiency_from_results(results, edges, *, surfaces=None, quantity="number"):
+    """:func:`grade_efficiency` of a results file (``chargesim.io.Results``).
+
+    Uses its ``deposits``, ``escapes`` and ``final`` (particles still in
+    flight at the end, counted as not collected).
+
+    Parameters
+    ----------
+    results : object with ``deposits``, ``escapes``, ``final`` dicts
+    edges : array_like
+        Diameter bin edges, m.
+    surfaces, quantity
+        As in :func:`grade_efficiency`.
+    """
+    if edges is None:
+        raise ValueError("edges (diameter bin edges, m) are needed: the results file names none")
+    final = getattr(results, "final", None) or None
+    if final is not None and not all(k in final for k in ("diameter", "weight", "mass")):
+        final = None
+    return grade_efficiency(results.deposits or {}, results.escapes or {}, edges, airborne=final,
+                            surfaces=surfaces, quantity=quantity)
+
+
 def deposition_density(deposits, surface, area, quantity="mass"):
     """Mean deposit per unit area on one surface.
 

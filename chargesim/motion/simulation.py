@@ -39,6 +39,21 @@ from .zones import ChargingZone
 
 _DEFAULT = object()
 
+#: Diagnostics written each ``diagnostics_every`` steps: name -> SI unit.
+DIAGNOSTICS = {
+    "n_alive": "1",
+    "n_emitted": "1",
+    "n_deposited": "1",
+    "n_escaped": "1",
+    "dt": "s",
+    "error_estimate": "m",
+    "collection_efficiency": "1",
+    "total_charge": "C",
+    "kinetic_energy": "J",
+    "coulomb_energy": "J",
+    "applied_energy": "J",
+}
+
 #: Name and version of the checkpoint dict layout.
 CHECKPOINT_FORMAT = ("chargesim.motion.checkpoint", 1)
 
@@ -420,13 +435,14 @@ class Simulation:
         sys_ = self.system
         m = sys_.medium
         return {
+            "surfaces": {c.name: (float(c.area) if math.isfinite(c.area) else None) for c in sys_.collectors},
             "surface_names": [c.name for c in sys_.collectors],
             "surface_kinds": [c.describe()["kind"] for c in sys_.collectors],
-            "surface_areas": [float(c.area) for c in sys_.collectors],
             "outlet_names": [o[2] for o in sys_.domain.outlets],
-            "population_names": [p.name for p in sys_.populations],
-            "populations": {p.name: p.describe() for p in sys_.populations},
+            "populations": [p.name for p in sys_.populations],
+            "population_details": {p.name: p.describe() for p in sys_.populations},
             "collectors": {c.name: c.describe() for c in sys_.collectors},
+            "diagnostics": dict(DIAGNOSTICS),
             "domain": sys_.domain.describe(),
             "medium": m.describe(),
             "gravity": sys_.gravity.copy(),
@@ -489,7 +505,8 @@ class Simulation:
             if self.checkpoint_every and self.step % self.checkpoint_every == 0:
                 rec.checkpoint(self.snapshot())
         summary = self.summary()
-        rec.finish(summary)
+        # the recorder also gets the live end state (for its /final record)
+        rec.finish(dict(summary, state=self.system.state))
         return summary
 
     # -- reports ---------------------------------------------------------------

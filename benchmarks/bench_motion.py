@@ -7,7 +7,8 @@ evaluations, and prints medians over the timed steps:
 
     N  method  step [ms]  coulomb [ms]  outside share  particle-steps/s
 
-"outside share" is the part of a step spent outside the Coulomb evaluation
+Each size is also timed with Coulomb off: the loop's own rate (integrator,
+drag, sources, collectors, bookkeeping). "outside share" is the part of a step spent outside the Coulomb evaluation
 (goal <= 20 %). Goal once the tree evaluator is in: >= 5e5 particle-steps/s
 at N = 1e5 on the 2-core reference machine. The peak memory of the step
 (tracemalloc, numpy buffers) is printed per particle to show it is O(N).
@@ -26,7 +27,7 @@ from chargesim.motion import forces as _forces
 from chargesim.sources import UniformField
 
 
-def build(n, seed=0):
+def build(n, seed=0, coulomb=True):
     rng = np.random.default_rng(seed)
     s = ParticleState(n)
     pos = rng.uniform([0.0, 0.0, 0.0], [0.5, 0.3, 0.5], (n, 3))
@@ -36,7 +37,7 @@ def build(n, seed=0):
     plates = [PlaneCollector("plate low", (0, 0, 0), (0, 1, 0)), PlaneCollector("plate high", (0, 0.3, 0), (0, -1, 0))]
     dom = Domain(lo=(0, -1, 0), hi=(0.5, 1.3, 0.5), kinds=("periodic", "open", "periodic"))
     return System(rng, particles=s, medium=Medium(), sources=[UniformField((0, 2e5, 0))], domain=dom,
-                  collectors=plates, coulomb=Coulomb("auto"))
+                  collectors=plates, coulomb=Coulomb("auto") if coulomb else None)
 
 
 class _Timed:
@@ -64,8 +65,8 @@ class _Timed:
         _forces.Coulomb.field = self._orig
 
 
-def measure(n, steps):
-    system = build(n)
+def measure(n, steps, coulomb=True):
+    system = build(n, coulomb=coulomb)
     sim = Simulation(system, dt=1e-3, diagnostics_every=0)
     sim.run(steps=2)  # compile, build caches
     step_times, coul_times = [], []
@@ -82,7 +83,8 @@ def measure(n, steps):
     tracemalloc.stop()
     step = statistics.median(step_times)
     coul = statistics.median(coul_times)
-    return {"n": n, "method": system.coulomb.method_for(system.state.n), "step": step, "coulomb": coul,
+    method = system.coulomb.method_for(system.state.n) if coulomb else "off"
+    return {"n": n, "method": method, "step": step, "coulomb": coul,
             "outside": (step - coul) / step, "rate": system.state.n / step, "bytes": peak / n}
 
 
@@ -99,9 +101,10 @@ def main(argv=None):
     print(f"{'N':>8} {'method':>8} {'step [ms]':>10} {'coulomb [ms]':>13} {'outside':>8} "
           f"{'particle-steps/s':>17} {'peak B/particle':>16}")
     for n in sizes:
-        r = measure(n, steps)
-        print(f"{r['n']:>8d} {r['method']:>8} {1e3 * r['step']:>10.2f} {1e3 * r['coulomb']:>13.2f} "
-              f"{100 * r['outside']:>7.1f}% {r['rate']:>17.3g} {r['bytes']:>16.0f}")
+        for on in (True, False):  # with space charge, then the loop alone
+            r = measure(n, steps, coulomb=on)
+            print(f"{r['n']:>8d} {r['method']:>8} {1e3 * r['step']:>10.2f} {1e3 * r['coulomb']:>13.2f} "
+                f"{100 * r['outside']:>7.1f}% {r['rate']:>17.3g} {r['bytes']:>16.0f}")
 
 
 if __name__ == "__main__":

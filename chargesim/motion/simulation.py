@@ -493,7 +493,11 @@ class Simulation:
             deposits, escapes = self.advance(dt)
             done += 1
             if self.step_control is not None and dt == self.dt:
-                self.dt = self.step_control.next_dt(dt, self.last_error)
+                nxt = self.step_control.next_dt(dt, self.last_error)
+                if self._beta.size:
+                    # never grow past the scheme's stability limit (Verlet: 2 tau)
+                    nxt = min(nxt, 0.5 * float(self.integrator.stable_step(self._beta).min()))
+                self.dt = nxt
             if deposits is not None:
                 rec.deposits(deposits)
             if escapes is not None:

@@ -57,28 +57,73 @@ Absorbing surfaces and the domain (``boundaries.py``)
     ``SphereCollector(name, center, radius)``. A particle deposits when its
     surface touches the collector.
 
-Run (``simulation.py``)
-    ``Coulomb(method="auto", radii="particle", **options)`` or ``coulomb=None``
-    (off): space charge through ``chargesim.coulomb.field`` with
-    ``weight * charge``.
-    ``ChargingZone(lo, hi, ion_density, ion_mobility=..., ...)``: per-step
-    charging with ``chargesim.charging.charge_step`` inside a box.
-    ``System(rng, *, particles=None, populations=(), medium=Medium(),
-    sources=(), images=(), domain=Domain(), collectors=(), inlets=(),
-    gravity=(0, 0, 0), coulomb=Coulomb(), brownian=False,
-    eddy_diffusivity=0.0, charging=(), drag=True)``.
-    ``Simulation(system, dt, *, integrator="auto", step_control=None,
-    frame_every=0, diagnostics_every=1, checkpoint_every=0)``;
-    ``run(t_end=None, steps=None, recorder=None) -> summary`` (dict);
-    ``snapshot() -> dict`` and ``restore(snapshot)`` (bitwise resume);
-    ``step``, ``time``, ``counters``, ``summary()``.
-    Integrators (``integrators.py``): ``Integrator`` (base contract),
-    ``VelocityVerlet()``, ``DragExact()``, ``AutoIntegrator(ratio=0.1)``;
-    ``StepControl(tolerance, dt_min, dt_max)`` for adaptive steps.
+Forces (``forces.py``, ``zones.py``)
+    ``Coulomb(method="auto", radii="particle", **options)`` (radii
+    "particle", "none" or one softening radius in m; options such as
+    ``accuracy=1e-3`` go to the front door): space charge through
+    ``chargesim.coulomb.field`` with ``weight * charge`` and the medium's
+    eps_r; images of each provider through ``chargesim.coulomb.field(img_pos,
+    img_q, targets=positions, eps_r=...)``; sources summed. The open-space sum
+    is used (pass ``box=`` in the options for a periodic sum).
+    ``ChargingZone(lo, hi, ion_density, ion_mobility=1.5e-4, ion_mass=...,
+    ion_sign=-1, field_charging=True, diffusion=True, name="charging")``:
+    per-step ``chargesim.charging.charge_step`` in the box, then
+    ``cap_rayleigh`` for droplets (populations with ``surface_tension``).
 
-The summary handed to ``recorder.finish`` holds ``emitted_mass``,
-``deposited_mass``, ``escaped_mass`` (kg, real mass = weight x particle mass),
-``collection_efficiency`` (deposited / emitted), counts per surface.
+Run (``simulation.py``)
+    ``System(rng, *, particles=None, populations=(), medium=None,
+    sources=(), images=(), domain=None, collectors=(), inlets=(),
+    gravity=(0, 0, 0), coulomb=Coulomb(), brownian=False,
+    eddy_diffusivity=0.0, charging=(), drag=True)``; ``coulomb=None`` is off;
+    ``eddy_diffusivity`` one value or per axis, m^2/s (a random walk that is
+    mirrored at collectors: mixing does not deposit, the drift does).
+    ``Simulation(system, dt, *, integrator="auto", step_control=None,
+    frame_every=0, diagnostics_every=1, checkpoint_every=0,
+    energy_max_n=2000)``; ``run(t_end=None, steps=None, recorder=None) ->
+    summary`` (exactly one of ``t_end`` (s, absolute) or ``steps``);
+    ``advance(dt) -> (deposits, escapes)`` one step; ``snapshot() -> dict``
+    and ``restore(snapshot)`` (bitwise resume for the same thread count);
+    ``info()``, ``diagnostics()``, ``energies()``, ``summary()``; attributes
+    ``step``, ``time``, ``dt``, ``counters``.
+    Step order: mixing, integrate (first half), Brownian motion, collectors
+    and outlets (earliest contact on the segment wins), reflect/wrap, inlets
+    emit, field at all particles, charging, integrate (second half),
+    recorder calls (deposits, escapes, frames, diagnostics, checkpoints at
+    their cadences). ``recorder.start(info())`` once per recorder (also on
+    resume); ``recorder.finish(summary | {"state": ParticleState})`` at the
+    end of every ``run``.
+    ``info()`` keys: ``surfaces`` {name: area m^2 or None}, ``surface_names``,
+    ``surface_kinds``, ``outlet_names``, ``populations`` [names],
+    ``population_details``, ``collectors``, ``diagnostics`` {name: unit}
+    (``simulation.DIAGNOSTICS``), ``domain``, ``medium``, ``gravity``,
+    ``coulomb`` (method), ``integrator``, ``dt``, ``adaptive``, ``brownian``,
+    ``eddy_diffusivity``, ``step``, ``time``.
+    Summary keys: ``emitted_mass`` (initial + emitted), ``deposited_mass``,
+    ``escaped_mass``, ``airborne_mass`` (kg, real = weight x particle mass),
+    ``collection_efficiency`` (deposited / emitted), ``n_initial``,
+    ``n_emitted``, ``n_deposited``, ``n_escaped``, ``n_alive``,
+    ``n_rayleigh_capped``, ``surfaces`` {name: {"count", "mass"}} (collectors
+    and outlets), ``steps``, ``time``, ``particle_steps``.
+    Snapshot: ``format`` "chargesim.motion.checkpoint", ``version`` 1,
+    ``step``, ``time``, ``dt``, ``last_error``, ``particles``
+    (``ParticleState.to_dict()``), ``field`` (n, 3) V/m, ``inlets``
+    {"0": {"carry", "emitted"}, ...}, ``rng`` (JSON string of
+    ``rng.bit_generator.state``), ``counters``, ``masses``, ``surfaces``,
+    ``integrator`` counters: only dicts, arrays, numbers and strings.
+
+Integrators (``integrators.py``)
+    ``Integrator`` (base contract: ``assign``, ``first_half``,
+    ``second_half``, ``stable_step``, counters), ``VelocityVerlet()``
+    (refuses dt > 2 tau under drag), ``DragExact()`` (exponential; any dt;
+    equals Verlet without drag), ``AutoIntegrator(ratio=0.1)`` (drag-exact
+    where dt > ratio tau); ``StepControl(tolerance, dt_min, dt_max,
+    safety=0.9, grow=2.0)``: local position error estimate
+    err_i = dt^2 phi2(dt/tau_i) |f_i(t+dt) - f_i(t)| kept near ``tolerance``
+    (m), f = a + u/tau. Kernels run serially below ``PARALLEL_MIN`` particles.
+
+The analysis functions on event records (collection, grade and transfer
+efficiency, deposition density and maps, counts) are in
+:mod:`chargesim.analysis.efficiency`.
 """
 import importlib as _importlib
 

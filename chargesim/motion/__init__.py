@@ -54,7 +54,7 @@ Absorbing surfaces and the domain (``boundaries.py``)
     on the side ``normal`` points to; ``lo``/``hi`` box bounding the plate),
     ``CylinderCollector(name, point, axis, radius, inside=True, extent=None,
     area=None)`` (tube wall when ``inside``; a wire when not),
-    ``SphereCollector(name, center, radius)``. A particle deposits when its
+    ``SphereCollector(name, center, radius, inside=False)``. A particle deposits when its
     surface touches the collector.
 
 Forces (``forces.py``, ``zones.py``)

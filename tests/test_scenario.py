@@ -184,3 +184,14 @@ def test_set_key_paths():
     assert doc == {"a": [{"b": 2}], "c": {"d": 3}}
     with pytest.raises(ScenarioError, match="out of range"):
         set_key(doc, "a[3].b", 1)
+
+
+def test_front_door_names_and_replace():
+    import chargesim
+
+    s = chargesim.load_scenario(ROOT / "scenarios" / "ionic_cell.toml")
+    assert chargesim.run is not None
+    t = s.replace({"coulomb.accuracy": 1e-6})
+    assert t.data["coulomb"]["accuracy"] == 1e-6 and s.data["coulomb"]["accuracy"] == 1e-8
+    with pytest.raises(ScenarioError, match="coulomb.accuracy"):
+        s.replace({"coulomb.accuracy": 2})

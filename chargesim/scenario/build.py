@@ -87,9 +87,9 @@ def make_sources(d):
                                       extent=[[lo[a], hi[a]] for a in others], name=name))
         elif t == "wire_plate":
             p0, p1 = sorted(e["plates"])
+            origin = (0.5 * (p0 + p1), e["first_wire"], 0.5 * (lo[2] + hi[2]))
             out.append(WirePlateChannel(e["voltage"], e["wire_radius"], 0.5 * (p1 - p0), e["wire_spacing"],
-                                        n_wires=e["n_wires"], origin=(0.5 * (p0 + p1), e["first_wire"], 0.0),
-                                        length=hi[2] - lo[2], name=name))
+                                        n_wires=e["n_wires"], origin=origin, length=hi[2] - lo[2], name=name))
         elif t == "wire_in_tube":
             k = _AXIS[e["axis"]]
             axis = np.zeros(3)
@@ -135,6 +135,26 @@ def _grounded_images(d, eps_m):
         if g["collect"]:
             collectors.append(motion.PlaneCollector(g["name"], g["point"], g["normal"], lo=lo, hi=hi))
     return images, collectors
+
+
+def electrode_outlines(described):
+    """Outlines for the field map in the results file's convention: a list of
+    {"name", "kind", "points": [[x, y, z], ...], "radius"?, "axis"?, "normal"?}."""
+    out = []
+    for dsc in described:
+        for o in dsc.get("outlines", []):
+            shape = o.get("shape")
+            item = {"name": dsc.get("name", ""), "kind": shape}
+            if shape == "cylinder":
+                item.update(kind="wire", points=[list(o["point"])], radius=float(o["radius"]), axis=list(o["axis"]))
+            elif shape == "plane":
+                item.update(kind="plane", points=[list(o["point"])], normal=list(o["normal"]))
+            elif shape == "box":
+                item.update(kind="plate", points=[list(o["low"]), list(o["high"])])
+            else:
+                continue
+            out.append(item)
+    return out
 
 
 def _flat(corner, k, u):
@@ -281,8 +301,8 @@ def build(scenario, *, fields_only=False):
                              radii=radii if np.any(radii > 0) else None, eps_r=eps_m, method=method,
                              options=copt["options"])
     images, collectors = _grounded_images(d, eps_m)
-    info = {"electrodes": [s.describe() for s in sources] + [im.describe() for im in images
-                                                               if hasattr(im, "describe")]}
+    described = [s.describe() for s in sources] + [im.describe() for im in images if hasattr(im, "describe")]
+    info = {"sources": described, "electrodes": electrode_outlines(described)}
     if fields_only or not any(not p["fixed"] for p in d["populations"]):
         return Built(None, sources, fixed, fnames, images, medium, info)
 

@@ -216,3 +216,35 @@ def test_image_force_over_a_grounded_plane(eps_r):
     # the first Verlet step from rest moves a dt^2/2 exactly
     assert 2 * (z - s.position[0, 2]) / dt ** 2 == pytest.approx(a, rel=1e-6)
     assert s.position[0, 0] == 0.0 and s.position[0, 1] == 0.0
+
+
+def test_auto_integrator_picks_a_scheme_per_particle():
+    from chargesim.motion import AutoIntegrator
+
+    med = Medium()
+    tau = np.array([med.relaxation_time(1e-6, 1000.0), med.relaxation_time(1e-3, 1000.0), np.inf])
+    codes = AutoIntegrator(ratio=0.1).assign(1.0 / tau, 1e-3)
+    # 1 um: tau = 3.6 us << dt -> drag-exact; 1 mm: tau of seconds -> Verlet;
+    # vacuum (beta = 0) -> Verlet
+    np.testing.assert_array_equal(codes, [DragExact.code, VelocityVerlet.code, VelocityVerlet.code])
+
+
+def test_step_control_follows_its_documented_rule():
+    ctl = StepControl(tolerance=1e-6, dt_min=1e-6, dt_max=1.0, safety=0.9, grow=2.0)
+    # dt_next = dt * clip(0.9 (tol/err)^(1/3), 1/2, 2)
+    assert ctl.next_dt(1e-3, 1e-6 / 8) == pytest.approx(1e-3 * 1.8)
+    assert ctl.next_dt(1e-3, 1e-3) == pytest.approx(0.5e-3)
+    assert ctl.next_dt(1e-3, 0.0) == pytest.approx(2e-3)
+    assert ctl.next_dt(0.9, 0.0) == 1.0
+    with pytest.raises(ValueError, match="dt_min"):
+        StepControl(1e-6, 1.0, 0.1)
+    # a constant force: the Verlet estimate dt^2/2 |a(t+dt) - a(t)| is zero,
+    # so the step grows to dt_max; the path is exact (z = -g t^2/2)
+    s = _one((0, 0, 0))
+    sys_ = System(np.random.default_rng(0), particles=s, drag=False, gravity=(0, 0, -STANDARD_GRAVITY),
+                  coulomb=None)
+    sim = Simulation(sys_, dt=1e-3, integrator="verlet", step_control=StepControl(1e-9, 1e-4, 0.05),
+                     diagnostics_every=0)
+    sim.run(t_end=1.0)
+    assert sim.dt == 0.05 and sim.step < 40
+    assert s.position[0, 2] == pytest.approx(-0.5 * STANDARD_GRAVITY, rel=1e-12)

@@ -161,7 +161,7 @@ class FieldModel:
                 if self.coulomb is not None:
                     e += self.coulomb.field(ipos, iq, self.eps_r, targets=pos)
                 else:
-                    e += coulomb.field(ipos, iq, pos, eps_r=self.eps_r, method="direct")
+                    e += coulomb.field(ipos, iq, pos, eps_r=self.eps_r, method="auto")
         return e
 
     def applied_potential(self, points):

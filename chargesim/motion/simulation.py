@@ -343,7 +343,7 @@ class Simulation:
         hit = which >= 0
         deposits = escapes = None
         if hit.any():
-            names = sys_.surface_names()
+            names = np.array(sys_.surface_names(), dtype=str)
             for is_dep in (True, False):
                 sel = np.flatnonzero(hit & ((which < self._n_collectors) == is_dep))
                 if sel.size == 0:
@@ -354,7 +354,7 @@ class Simulation:
                     "time": self.time + best[sel] * dt,
                     "position": point[sel].copy(),
                     "velocity": s.velocity[sel].copy(),
-                    "surface": np.array([names[w] for w in which[sel]], dtype=str),
+                    "surface": names[which[sel]],
                     "charge": s.charge[sel].copy(),
                     "mass": mass,
                     "diameter": s.diameter[sel].copy(),
@@ -365,10 +365,13 @@ class Simulation:
                 key = "deposited" if is_dep else "escaped"
                 self.counters[key] += int(sel.size)
                 self.masses[key] += float(np.sum(real))
-                for w, mw in zip(which[sel], real):
-                    tot = self.surface_totals[names[w]]
-                    tot["count"] += 1
-                    tot["mass"] += float(mw)
+                # per-surface totals in surface order (a fixed summation order)
+                per_n = np.bincount(which[sel], minlength=names.size)
+                per_m = np.bincount(which[sel], weights=real, minlength=names.size)
+                for k in np.flatnonzero(per_n):
+                    tot = self.surface_totals[str(names[k])]
+                    tot["count"] += int(per_n[k])
+                    tot["mass"] += float(per_m[k])
                 if is_dep:
                     deposits = rec
                 else:

@@ -157,3 +157,20 @@ def test_initial_charges():
         LognormalSize(1e-6, 0.5)
     with pytest.raises(ValueError, match="rate"):
         Inlet(Population("p", 1e-6, 1000.0), DiscArea((0, 0, 0), (1, 0, 0), 1.0), rate=0)
+
+
+def test_state_and_system_pickle_for_parallel_sweeps():
+    # sweeps ship systems to worker processes: they must pickle
+    import pickle
+
+    from chargesim.motion import Simulation, System
+
+    s = ParticleState()
+    _add(s, 3, charge=1e-16)
+    t = pickle.loads(pickle.dumps(s))
+    np.testing.assert_array_equal(t.position, s.position)
+    sim = Simulation(System(np.random.default_rng(0), particles=s, coulomb=None), dt=1e-3)
+    sim2 = pickle.loads(pickle.dumps(sim))
+    sim.run(steps=3)
+    sim2.run(steps=3)
+    np.testing.assert_array_equal(sim.system.state.position, sim2.system.state.position)

@@ -112,8 +112,9 @@ class ParticleState:
     # -- views ---------------------------------------------------------------
     def __getattr__(self, name):
         # only called for names not found normally: the per-particle views
-        if name in _FIELDS:
-            return self.__dict__["_data"][name][: self.__dict__["_n"]]
+        d = self.__dict__
+        if name in _FIELDS and "_data" in d:  # (absent while unpickling)
+            return d["_data"][name][: d["_n"]]
         raise AttributeError(f"'ParticleState' object has no attribute {name!r}")
 
     @property

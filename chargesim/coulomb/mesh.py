@@ -62,8 +62,8 @@ _ALIAS = {4: 0.025, 6: 7e-3, 8: 7e-3, 10: 0.012, 12: 0.02}
 _MESH_SHARE = 0.3
 # rough costs per spline point (spreading + interpolation) and per mesh point
 # and FFT level (forward + inverse), s: only their ratio matters
-_COST_POINT = 2.0e-9
-_COST_FFT = 1.0e-9
+_COST_POINT = 7.0e-9
+_COST_FFT = 1.5e-9
 
 
 def _good_size(n):

@@ -8,6 +8,13 @@ charges) -> (img_pos, img_q)``) add the field of the image charges at the
 particles. The medium's relative permittivity divides the fields of free and
 image charges (not those of electrodes held at fixed potentials, which the
 sources compute themselves).
+
+A simulated particle of weight W acts, and is acted on, as a compact cloud of
+W real particles: its image is that of W x charge, so each of its real
+particles feels the images of the whole cloud (W times one particle's own
+image force). That is right for a cloud small compared with its distance to
+the conductor and an overestimate otherwise, as for the space charge between
+simulated particles; keep weights modest where image attraction matters.
 """
 import math
 import warnings

@@ -223,3 +223,80 @@ def test_not_converged_warns():
         res = chargesim.relax(rng.normal(size=(30, 3)), Q1, radius=1.0, max_iterations=3, stability=False)
     assert not res.converged
     assert any("did not reach tolerance" in str(w.message) for w in rec)
+
+
+# -- the relax command ---------------------------------------------------------------
+SHIPPED = __import__("pathlib").Path(__file__).resolve().parents[1] / "scenarios" / "bead_sheet_layout.toml"
+
+
+def _args(*argv):
+    import argparse
+
+    p = argparse.ArgumentParser()
+    layout.add_arguments(p)
+    return p.parse_args(list(argv))
+
+
+def test_relax_command_end_to_end_on_the_shipped_layout(tmp_path):
+    import h5py
+
+    out = tmp_path / "bead.h5"
+    fig = tmp_path / "bead.png"
+    rc = layout.command(_args(str(SHIPPED), "-o", str(out), "--figure", str(fig), "--quiet"))
+    assert rc == 0
+    with h5py.File(out, "r") as f:
+        # results conventions (issue 5): root attributes, units on every dataset
+        for key in ("format", "format_version", "program_version", "created", "scenario", "seed"):
+            assert key in f.attrs
+        assert f.attrs["scenario"] == SHIPPED.read_text()
+        missing = []
+        f.visititems(lambda n, o: missing.append(n) if isinstance(o, h5py.Dataset) and "units" not in o.attrs else None)
+        assert missing == []
+        pos = f["layout/position"][()]
+        q = f["layout/charge"][()]
+        fixed = f["layout/fixed"][()].astype(bool)
+        energy = float(f["layout/energy"][()])
+        assert f["layout/energy"].attrs["units"] == "J"
+        assert np.array_equal(pos[fixed], f["layout/initial_position"][()][fixed])
+        assert np.all(pos[~fixed, 2] == 0.0)  # on the sheet
+        assert f["stability"].attrs["n_unstable"] == 0
+        assert f["stability/eigenvalues"].attrs["units"] == "J/m^2"
+        nn = f["layout/nearest_distance"][()]
+        phi = f["fields/layout/potential"][()]
+        assert np.all(np.isfinite(phi))
+    # the stored energy, recomputed through the front door (direct sum) plus the
+    # uniform field's -sum q E.x (analytic), in air (CRC Handbook, from memory)
+    e_field = np.array([0.0, 0.0, 2.0e4])
+    expect = chargesim.energy(pos, q, eps_r=1.00059, method="direct") - float(np.sum(q * (pos @ e_field)))
+    assert energy == pytest.approx(expect, rel=1e-12)
+    # nearest-neighbour distances against scipy.spatial.cKDTree (reference library)
+    from scipy.spatial import cKDTree
+
+    np.testing.assert_allclose(nn, cKDTree(pos).query(pos, k=2)[0][:, 1], rtol=1e-15)
+    assert fig.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # the reader of the results layer opens it
+    res = chargesim.open_results(out)
+    assert "layout" in res.fields
+    # an existing file is not replaced without --overwrite
+    with pytest.raises(ValueError, match="exists"):
+        layout.command(_args(str(SHIPPED), "-o", str(out), "--quiet"))
+
+
+@pytest.mark.parametrize(
+    "edit, match",
+    [
+        (('kind = "plane"', 'kind = "cone"'), r"constraint\.kind: 'cone'"),
+        (('charge = "-2 pC"', 'charge = "-2 pF"'), r"particles\[0\]\.charge: '-2 pF'"),
+        (("tolerance = 1e-8", "tolerence = 1e-8"), r"layout\.tolerence.*did you mean 'tolerance'"),
+        (('radius = "12 mm"', 'radius = "-12 mm"'), r"particles\[1\]\.ring\.radius"),
+        (("seed = 20261201", ""), r"layout\.seed: restarts need a seed"),
+    ],
+)
+def test_relax_command_bad_layout_names_file_key_and_value(tmp_path, edit, match):
+    text = SHIPPED.read_text()
+    assert edit[0] in text
+    bad = tmp_path / "bad_layout.toml"
+    bad.write_text(text.replace(edit[0], edit[1]))
+    with pytest.raises(ValueError, match=match) as err:
+        layout.command(_args(str(bad), "-o", str(tmp_path / "x.h5"), "--quiet"))
+    assert str(bad) in str(err.value)

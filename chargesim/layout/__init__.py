@@ -242,6 +242,8 @@ def stability(positions, charges, *, constraint=None, radius=None, centre=None, 
 
 
 
+from ._command import add_arguments, command, load_layout  # noqa: E402  (uses relax above)
+
 __all__ = [
     "DENSE_LIMIT",
     "Bounds",
@@ -250,6 +252,9 @@ __all__ = [
     "RelaxResult",
     "Sphere",
     "Stability",
+    "add_arguments",
+    "command",
+    "load_layout",
     "nearest_neighbours",
     "relax",
     "stability",

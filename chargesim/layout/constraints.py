@@ -87,11 +87,13 @@ class Free:
         return np.zeros(x.shape[0])
 
     def random(self, nfree, rng, x0):
-        """Random starting positions on the constraint, spread like ``x0``."""
-        centre = x0.mean(axis=0)
-        spread = math.sqrt(max(np.mean(np.sum((x0 - centre) ** 2, axis=1)), 0.0) / 3.0)
-        spread = spread if spread > 0 else 1.0
-        return self.prepare(centre + spread * rng.standard_normal((nfree, 3)))
+        """Random starting positions on the constraint, uniform over the
+        bounding box of the given starts ``x0`` (a unit cube about them if
+        they all coincide), so restarts explore the region the user chose."""
+        lo, hi = x0.min(axis=0), x0.max(axis=0)
+        span = np.where(hi > lo, hi - lo, max(float(np.max(hi - lo)), 1.0))
+        mid = 0.5 * (lo + hi)
+        return self.prepare(mid + span * (rng.random((nfree, 3)) - 0.5))
 
     def rigid_conditions(self, length=1.0):
         """Rows C (k, 6) with C @ (omega, t/length) = 0 for the rigid motions
@@ -230,11 +232,12 @@ class Plane(Free):
         return basis, keep
 
     def random(self, nfree, rng, x0):
-        d = x0 - x0.mean(axis=0)
-        spread = math.sqrt(max(np.mean(np.sum(d**2, axis=1)), 0.0) / 2.0) or 1.0
-        uv = spread * rng.standard_normal((nfree, 2))
-        c = x0.mean(axis=0)
-        return self.project(c + np.outer(uv[:, 0], self.e1) + np.outer(uv[:, 1], self.e2))
+        # uniform over the in-plane bounding box of the given starts
+        uv = self.to_vars(x0).reshape(-1, 2)
+        lo, hi = uv.min(axis=0), uv.max(axis=0)
+        span = np.where(hi > lo, hi - lo, max(float(np.max(hi - lo)), 1.0))
+        r = (0.5 * (lo + hi) + span * (rng.random((nfree, 2)) - 0.5)).reshape(-1)
+        return self.from_vars(r)
 
     def rigid_conditions(self, length=1.0):
         # rotations only about the normal (omega x n = 0), translations in the plane

@@ -75,8 +75,8 @@ def _parser(wanted=None):
                        description="Compute the field grids the scenario asks for ([[output.field_grids]]) "
                                    "from the applied sources and fixed charges only, without moving particles.")
     p.add_argument("scenario", metavar="SCENARIO", help="scenario file (TOML)")
-    p.add_argument("-o", "--output", metavar="OUT.h5", help="results file to write (default: SCENARIO stem + "
-                                                            "'_field.h5' beside the scenario)")
+    p.add_argument("-o", "--output", metavar="OUT.h5", help="file to write the grids to (without it, only their "
+                                                            "ranges are printed)")
     p.add_argument("--overwrite", action="store_true", help="replace an existing file")
     p.add_argument("-q", "--quiet", action="store_true", help="print nothing on success")
     _add_common(p)
@@ -231,20 +231,28 @@ def _jsonable(x):
 
 def _cmd_field(args):
     from . import scenario as sc
-    from .scenario import summary
 
     s = sc.load_scenario(args.scenario)
     if not s["output"]["field_grids"]:
         raise UsageError(f"{args.scenario}: output.field_grids: the scenario asks for no field grids; "
                          "add an [[output.field_grids]] section")
-    out = args.output
-    if out is None:
-        stem = os.path.splitext(os.path.basename(args.scenario))[0]
-        out = os.path.join(os.path.dirname(os.path.abspath(args.scenario)), stem + "_field.h5")
-    _check_output(out, args.overwrite)
-    names = sc.run_fields(s, out, overwrite=args.overwrite)
+    if args.output is None:  # output only where the user says: without -o, show the grids' ranges
+        import numpy as np
+
+        from .scenario.build import build
+        from .scenario.runner import field_grid
+
+        built = build(s, fields_only=True)
+        for g in s["output"]["field_grids"]:
+            _, phi, e = field_grid(built, g)
+            emag = np.linalg.norm(e, axis=-1)
+            print(f"{g['name']}: {'x'.join(str(n) for n in g['shape'])} points, potential {phi.min():.4g} .. "
+                  f"{phi.max():.4g} V, field magnitude up to {emag.max():.4g} V/m (write them with -o OUT.h5)")
+        return 0
+    _check_output(args.output, args.overwrite)
+    names = sc.run_fields(s, args.output, overwrite=args.overwrite)
     if not args.quiet:
-        print(f"wrote field grid(s) {', '.join(names)} to {out}")
+        print(f"wrote field grid(s) {', '.join(names)} to {args.output}")
     return 0
 
 

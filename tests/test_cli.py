@@ -267,3 +267,18 @@ def test_delegated_command_not_available(capsys):
     rc = main(["verify", "--help"])
     assert rc in (0, 1)
     assert "Traceback" not in capsys.readouterr().err
+
+
+def test_overcharged_bead_raises_breakdown_finding(tmp_path, capsys):
+    # a 1 mm bead with 100 pC: surface field k q / R^2 = 3.6 MV/m (Gauss's law) exceeds the
+    # dielectric strength of air, about 3 MV/m at 20 degC and 1 atm (common practice)
+    text = (ROOT / "scenarios" / "beads_over_sheet.toml").read_text().replace('"40 pC"', '"100 pC"')
+    p = tmp_path / "hot_beads.toml"
+    p.write_text(text)
+    assert main(["check", str(p), "--json"]) == 0
+    doc = json.loads(capsys.readouterr().out)
+    hits = [f for f in doc["hazards"] if f["kind"] == "breakdown"]
+    assert hits and hits[0]["units"] == "V/m"
+    assert hits[0]["value"] >= 8.9875517923e9 * 100e-12 / (1.00059 * (0.5e-3) ** 2) * (1 - 1e-12)  # air eps_r: CRC (from memory)
+    assert main(["check", str(ROOT / "scenarios" / "beads_over_sheet.toml"), "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["hazards"] == []

@@ -28,6 +28,9 @@ def hazard_findings(scenario, built=None):
         built = build(scenario, fields_only=True)
     h, m = d["hazards"], d["medium"]
     fields = [s for s in built.sources if hasattr(s, "peak_field")]
+    surface = fixed_surface_field(built)
+    if surface is not None:
+        fields.append(("fixed charges (particle surface)", surface))
     conductors = []
     for c in h["conductors"]:
         conductors.append(hazards.Conductor(c["name"], capacitance=c["capacitance"], voltage=c["voltage"],
@@ -51,6 +54,29 @@ def hazard_findings(scenario, built=None):
                     f"ignition energy ({mie * 1e3:.3g} mJ): a spark from it can ignite the atmosphere; ground it",
                     c.name))
     return out
+
+
+def fixed_surface_field(built):
+    """Highest field at the surface of a fixed charged particle, V/m (None for point charges).
+
+    Its own surface field k|q|/(eps_r R^2) (Gauss's law) plus the field of the
+    other fixed charges and the applied sources at its centre: an upper
+    estimate of the field on its surface.
+    """
+    fx = built.fixed
+    if fx is None or fx.radii is None or not np.any(fx.radii > 0) or fx.charges.size == 0:
+        return None
+    from ..physics.constants import COULOMB_K
+
+    r = np.where(fx.radii > 0, fx.radii, np.inf)
+    own = COULOMB_K * np.abs(fx.charges) / (fx.eps_r * r * r)
+    others = np.zeros_like(fx.positions)
+    if fx.charges.size > 1:
+        others = coulomb.field(fx.positions, fx.charges, eps_r=fx.eps_r, method="direct" if fx.charges.size < 5000
+                               else "auto")
+    for src in built.sources:
+        others = others + src.field(fx.positions)
+    return float(np.max(own + np.linalg.norm(others, axis=1)))
 
 
 def _population_plan(d):

@@ -53,7 +53,7 @@ def _put(group, key, value):
             ds.attrs["kind"] = "unicode"
             ds.attrs["dtype"] = value.dtype.str
         else:
-            ds = group.create_dataset(key, data=np.ascontiguousarray(value))
+            ds = group.create_dataset(key, data=np.require(value, requirements="C"))  # keeps 0-d
             ds.attrs["kind"] = "ndarray"
         ds.attrs["units"] = "see the run loop's snapshot"
     elif isinstance(value, np.generic):
@@ -80,7 +80,7 @@ def _get(node):
         items = [_get(node[str(i)]) for i in range(n)]
         return items if kind == "list" else tuple(items)
     if kind == "ndarray":
-        return node[()] if node.shape == () else node[...]
+        return np.array(node[()]) if node.shape == () else node[...]
     if kind == "unicode":
         raw = node[...]
         dt = np.dtype(node.attrs["dtype"])

@@ -38,10 +38,12 @@ def _open(path):
         raise ValueError(f"{path}: not an HDF5 file (no HDF5 signature at the start)")
     try:
         return h5py.File(path, "r")
-    except OSError:
-        pass
+    except OSError as exc:
+        if "already open for write" not in str(exc):
+            raise ValueError(f"{path}: corrupt or truncated HDF5 file ({exc})") from None
     try:
-        # a killed run's partial file still carries the "open for writing" mark
+        # a killed run's partial file still carries the "open for writing"
+        # mark; SWMR readers accept it (the file is consistent by design)
         return h5py.File(path, "r", swmr=True)
     except OSError as exc:
         raise ValueError(f"{path}: corrupt or truncated HDF5 file ({exc})") from None
@@ -100,19 +102,24 @@ class Results:
 
     def __init__(self, path):
         self.path = os.fspath(path)
-        with _open(self.path) as f:
-            fmt = _attr(f, "format")
-            if fmt != S.FORMAT_NAME:
-                raise ValueError(f"{self.path}: not a chargesim results file "
-                                 f"(root attribute 'format' is {fmt!r}, expected {S.FORMAT_NAME!r})")
-            ver = str(_attr(f, "format_version", ""))
-            if ver.split(".")[0] != S.FORMAT_VERSION.split(".")[0]:
-                raise ValueError(f"{self.path}: results format version {ver!r} is not readable by this "
-                                 f"version (reads {S.FORMAT_VERSION.split('.')[0]}.x)")
-            try:
+        f = _open(self.path)
+        try:
+            with f:
+                self._check(f)
                 self._read(f)
-            except (KeyError, OSError) as exc:
-                raise ValueError(f"{self.path}: damaged results file ({exc})") from None
+        except (KeyError, OSError, RuntimeError, TypeError) as exc:
+            # h5py reports damaged metadata as KeyError / OSError on access
+            raise ValueError(f"{self.path}: corrupt or damaged results file ({exc})") from None
+
+    def _check(self, f):
+        fmt = _attr(f, "format")
+        if fmt != S.FORMAT_NAME:
+            raise ValueError(f"{self.path}: not a chargesim results file "
+                             f"(root attribute 'format' is {fmt!r}, expected {S.FORMAT_NAME!r})")
+        ver = str(_attr(f, "format_version", ""))
+        if ver.split(".")[0] != S.FORMAT_VERSION.split(".")[0]:
+            raise ValueError(f"{self.path}: results format version {ver!r} is not readable by this "
+                             f"version (reads {S.FORMAT_VERSION.split('.')[0]}.x)")
 
     def _read(self, f):
         self.attrs = {k: _attr(f, k) for k in f.attrs}

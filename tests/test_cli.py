@@ -279,6 +279,8 @@ def test_overcharged_bead_raises_breakdown_finding(tmp_path, capsys):
     doc = json.loads(capsys.readouterr().out)
     hits = [f for f in doc["hazards"] if f["kind"] == "breakdown"]
     assert hits and hits[0]["units"] == "V/m"
-    assert hits[0]["value"] >= 8.9875517923e9 * 100e-12 / (1.00059 * (0.5e-3) ** 2) * (1 - 1e-12)  # air eps_r: CRC (from memory)
+    # the centre bead sees no field from its eight neighbours (symmetry), so its own surface field is the peak;
+    # air eps_r 1.00059: CRC Handbook (from memory)
+    assert hits[0]["value"] == pytest.approx(8.9875517923e9 * 100e-12 / (1.00059 * (0.5e-3) ** 2), rel=1e-8)
     assert main(["check", str(ROOT / "scenarios" / "beads_over_sheet.toml"), "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["hazards"] == []

@@ -44,7 +44,7 @@ from . import _checks, cells
 COMMON_OPTIONS = {
     # three orthorhombic edge lengths, m (required)
     "box": None,
-    # target rms relative error of fields/forces (and of the energy)
+    # target rms relative error of fields/forces (see accuracy_product)
     "accuracy": 1e-5,
     # None (3-D periodic) or the non-periodic axis 0, 1 or 2 (slab geometry)
     "slab": None,
@@ -102,15 +102,23 @@ class Setup:
 def accuracy_product(accuracy):
     """The product s = alpha r_c for a relative error ``accuracy``.
 
+    ``accuracy`` means the rms relative error of the fields (forces) on the
+    particles, sqrt(sum |dE_i|^2 / sum |E_i|^2), for particles that do not
+    nearly touch (a hard-core gas, e.g. no two closer than a third of the
+    mean spacing). For uniformly random points the rms field is dominated by
+    the few closest pairs, and the same settings give a relative error lower
+    by up to an order of magnitude. Potentials and the energy come out with a
+    similar rms relative error per particle.
+
     The Kolafa--Perram real-space estimate of the rms force error is
-    ~ 2 Q sqrt(1/(N r_c V)) exp(-s^2) with Q = sum q^2. Divided by the rms
-    force of a random neutral system (~ sqrt(Q/N) sqrt(sum q^2)/d^2 at mean
-    spacing d) the prefactor is O(1) for r_c of a few d, so the relative error
-    is ~ exp(-s^2)/s (the 1/s from the erfc asymptote, kept because it
-    matches the measured errors of tests/test_ewald.py better). Solved for s
-    by a few Newton steps.
+    ~ 2 Q sqrt(1/(N r_c V)) exp(-s^2) with Q = sum q^2; relative to the rms
+    force of a neutral system at mean spacing d this is O(1) exp(-s^2) for
+    r_c of a few d. Here exp(-s^2)/s = accuracy / 2 (the 1/s from the erfc
+    asymptote; the 1/2 because exp(-s^2)/s = accuracy measured 0.6-1.1 x
+    accuracy on a hard-core gas, benchmarks/bench_periodic.py's system).
+    Solved for s by Newton steps.
     """
-    target = -math.log(accuracy)
+    target = -math.log(0.5 * accuracy)
     s = math.sqrt(target)
     for _ in range(20):
         # f(s) = s^2 + ln s - target

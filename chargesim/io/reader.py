@@ -14,6 +14,7 @@ import h5py
 import numpy as np
 
 from . import schema as S
+from .repair import open_for_reading
 
 
 def _attr(obj, name, default=None):
@@ -37,14 +38,7 @@ def _open(path):
     if head != b"\x89HDF\r\n\x1a\n":
         raise ValueError(f"{path}: not an HDF5 file (no HDF5 signature at the start)")
     try:
-        return h5py.File(path, "r")
-    except OSError as exc:
-        if "already open for write" not in str(exc):
-            raise ValueError(f"{path}: corrupt or truncated HDF5 file ({exc})") from None
-    try:
-        # a killed run's partial file still carries the "open for writing"
-        # mark; SWMR readers accept it (the file is consistent by design)
-        return h5py.File(path, "r", swmr=True)
+        return open_for_reading(path)
     except OSError as exc:
         raise ValueError(f"{path}: corrupt or truncated HDF5 file ({exc})") from None
 

@@ -15,6 +15,7 @@ import h5py
 
 from . import schema as S
 from .checkpoint import load_checkpoint
+from .repair import clear_status_flags, open_for_reading
 from .writer import ResultsWriter, _sha
 
 
@@ -30,12 +31,19 @@ def _attr(f, name, default=None):
 def _open_partial(path):
     try:
         return h5py.File(path, "r")
+    except OSError as exc:
+        if "already open for write" not in str(exc):
+            return None  # not an HDF5 file we can read: nothing to keep
+    try:
+        return h5py.File(path, "r", swmr=True)  # a killed SWMR writer's file
     except OSError:
         pass
+    # killed during the short non-SWMR phases (set-up, finish): clear the mark
     try:
-        return h5py.File(path, "r", swmr=True)
-    except OSError:
-        return None  # killed before its layout was complete: nothing to keep
+        clear_status_flags(path)
+        return h5py.File(path, "r")
+    except (OSError, ValueError):
+        return None
 
 
 def _copy_prefix(src, dst, n, ckw_from):
@@ -55,7 +63,7 @@ def _copy_prefix(src, dst, n, ckw_from):
 
 def _rebuild(partial, counts):
     tmp = partial + ".rebuild"
-    with h5py.File(partial, "r", swmr=True) as old, h5py.File(tmp, "w", libver="latest") as new:
+    with open_for_reading(partial) as old, h5py.File(tmp, "w", libver="latest") as new:
         for k, v in old.attrs.items():
             new.attrs[k] = v
         old.copy(old["fields"], new, "fields")

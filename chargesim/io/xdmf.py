@@ -11,9 +11,8 @@ is copied. Paths in the XML are relative to the sidecar's directory.
 import os
 import xml.etree.ElementTree as ET
 
-import h5py
-
 from . import schema as S
+from .repair import open_for_reading
 
 _NUMBER = {"f": "Float", "i": "Int", "u": "UInt"}
 
@@ -68,11 +67,7 @@ def write_xdmf(h5_path, xdmf_path=None):
     fname = os.path.relpath(os.path.abspath(h5_path), os.path.dirname(os.path.abspath(xdmf_path)))
     root = ET.Element("Xdmf", {"Version": "3.0", "xmlns:xi": "http://www.w3.org/2001/XInclude"})
     dom = ET.SubElement(root, "Domain")
-    try:
-        f = h5py.File(h5_path, "r")
-    except OSError:
-        f = h5py.File(h5_path, "r", swmr=True)
-    with f:
+    with open_for_reading(h5_path) as f:
         for name in sorted(f.get("fields", {})):
             g = f["fields"][name]
             grid = ET.SubElement(dom, "Grid", {"Name": f"field {name}", "GridType": "Uniform"})

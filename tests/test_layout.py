@@ -300,3 +300,17 @@ def test_relax_command_bad_layout_names_file_key_and_value(tmp_path, edit, match
     with pytest.raises(ValueError, match=match) as err:
         layout.command(_args(str(bad), "-o", str(tmp_path / "x.h5"), "--quiet"))
     assert str(bad) in str(err.value)
+
+
+def test_matrix_free_newton_and_lanczos_agree_with_dense(monkeypatch):
+    # the large-N path (MINRES Newton steps and Lanczos eigenvalues on
+    # matrix-free Hessian products, scipy.sparse.linalg) against the dense path
+    from chargesim.layout import _stability
+
+    x = np.random.default_rng(8).normal(size=(40, 3))
+    dense = chargesim.relax(x, Q1, radius=1.0, n_modes=4)
+    monkeypatch.setattr(_stability, "DENSE_LIMIT", 10)
+    sparse = chargesim.relax(x, Q1, radius=1.0, n_modes=4)
+    assert sparse.converged and sparse.stability.method == "lanczos"
+    assert sparse.energy == pytest.approx(dense.energy, rel=1e-13)
+    np.testing.assert_allclose(sparse.stability.eigenvalues, dense.stability.eigenvalues[:4], rtol=1e-6)

@@ -20,6 +20,10 @@ from . import _stability
 from ._system import nearest_neighbours
 
 
+#: Relative residual at which the first minimizer round hands over to Newton.
+HANDOFF = 1e-5
+
+
 @dataclass
 class RelaxResult:
     """A relaxed layout.
@@ -184,8 +188,11 @@ def _lbfgs(system, xf, length, fscale, tol, maxiter, memory=20):
             hist_s, hist_y = [], []
             d = -g
             slope = float(g @ d)
-        near, _ = nearest_neighbours(x_all, system.box)
-        cap = 0.25 * near[system.free] / unit
+        if it % 5 == 1:
+            # the cap needs only the scale of each particle's neighbourhood:
+            # refresh it every few steps (a k-d tree costs as much as a force sum)
+            near, _ = nearest_neighbours(x_all, system.box)
+            cap = 0.2 * near[system.free] / unit
         step_len = np.sqrt(np.sum(d.reshape(nf, dim) ** 2, axis=1))
         with np.errstate(divide="ignore"):
             amax = float(np.min(np.where(step_len > 0, cap / step_len, np.inf)))
@@ -316,11 +323,14 @@ def run_start(system, x_start_free, *, tol, minimizer, maxiter):
     xf = x_start_free
     iterations = 0
     message = ""
-    for _ in range(3):
+    for round_ in range(3):
+        # the first round hands over to Newton at HANDOFF: from there Newton
+        # converges quadratically where L-BFGS would still crawl linearly
+        target = max(tol, HANDOFF) if round_ == 0 else tol
         if minimizer == "fire":
-            xf, it, message = _fire(system, xf, length, fscale, tol, maxiter - iterations)
+            xf, it, message = _fire(system, xf, length, fscale, target, maxiter - iterations)
         else:
-            xf, it, message = _lbfgs(system, xf, length, fscale, tol, maxiter - iterations)
+            xf, it, message = _lbfgs(system, xf, length, fscale, target, maxiter - iterations)
         iterations += it
         xf, ns = _newton(system, xf, tol)
         iterations += ns

@@ -182,3 +182,20 @@ def test_box_required():
     x, q = random_neutral(4, np.ones(3), seed=0)
     with pytest.raises(ValueError, match="box is required"):
         chargesim.coulomb.energy(x, q, method="mesh")
+
+
+def test_same_bits_on_one_and_two_threads():
+    # the slab-parity spreading adds in an order set by the mesh alone
+    import numba
+
+    box = np.ones(3)
+    x, q = random_neutral(4000, box, seed=31)
+    before = numba.get_num_threads()
+    try:
+        numba.set_num_threads(1)
+        a = chargesim.coulomb.field(x, q, method="mesh", box=box, accuracy=1e-4)
+        numba.set_num_threads(min(2, numba.config.NUMBA_NUM_THREADS))
+        b = chargesim.coulomb.field(x, q, method="mesh", box=box, accuracy=1e-4)
+    finally:
+        numba.set_num_threads(before)
+    assert np.array_equal(a, b)

@@ -142,117 +142,136 @@ def _base(x, length, k):
     return iu, u - iu
 
 
-# The kernels work on a mesh padded by p - 1 planes below each axis: the p
-# spline points of a particle in cell i are then the padded indices i..i+p-1,
-# contiguous and without any modulo in the inner loops; the padding is folded
-# back onto the periodic mesh afterwards (and filled from it for the
-# interpolation). Particles are visited in mesh-cell order for cache locality.
+# Spreading writes to one shared mesh without races and in a fixed order:
+# particles are sorted by mesh cell (x-major), the x-planes are cut into an
+# even number of slabs at least p planes thick, and the even slabs are done in
+# parallel, then the odd ones. A particle in plane i writes to planes
+# i-p+1..i, so two slabs of the same parity never touch the same plane (the
+# wrap-around of slab 0 lands in the last slab, of the other parity). The
+# order of additions depends only on the mesh, not on the thread count.
 
 @numba.njit(cache=True)
-def _cells_of(px, py, pz, box, shape, cx, cy, cz, key):
+def _cell_keys(px, py, pz, box, shape, key):
     for i in range(px.size):
         ix, _ = _base(px[i], box[0], shape[0])
         iy, _ = _base(py[i], box[1], shape[1])
         iz, _ = _base(pz[i], box[2], shape[2])
-        cx[i] = ix
-        cy[i] = iy
-        cz[i] = iz
         key[i] = (ix * shape[1] + iy) * shape[2] + iz
 
 
-@numba.njit(parallel=True, cache=True)
-def _spread(px, py, pz, q, box, shape, p, visit, nchunks):
+@numba.njit(inline="always")
+def _indices(i0, k, p, out):
+    # periodic mesh indices i0, i0-1, ..., i0-p+1 of the p spline points
+    for a in range(p):
+        j = i0 - a
+        out[a] = j + k if j < 0 else j
+
+
+@numba.njit(cache=True)
+def _spread_range(px, py, pz, q, box, shape, p, visit, lo, hi, mesh):
     k1, k2, k3 = shape[0], shape[1], shape[2]
-    n = visit.size
-    part = np.zeros((nchunks, k1 + p - 1, k2 + p - 1, k3 + p - 1))
-    for c in numba.prange(nchunks):
-        wx = np.empty(p)
-        wy = np.empty(p)
-        wz = np.empty(p)
-        dw = np.empty(p)
-        g = part[c]
-        for s in range(c * n // nchunks, (c + 1) * n // nchunks):
-            i = visit[s]
-            ix, tx = _base(px[i], box[0], k1)
-            iy, ty = _base(py[i], box[1], k2)
-            iz, tz = _base(pz[i], box[2], k3)
-            _spline(tx, p, wx, dw)
-            _spline(ty, p, wy, dw)
-            _spline(tz, p, wz, dw)
-            qi = q[i]
-            for a in range(p):
-                # spline point a sits at periodic index i - a, padded i - a + p - 1
-                qa = qi * wx[a]
-                ga = ix + p - 1 - a
-                for b in range(p):
-                    qab = qa * wy[b]
-                    row = g[ga, iy + p - 1 - b]
-                    for cc in range(p):
-                        row[iz + cc] += qab * wz[p - 1 - cc]
-    return part
-
-
-def _fold(part, p):
-    """Sum the chunk meshes and fold the padding back onto the periodic mesh.
-
-    Padded index P belongs to periodic index (P - p + 1) mod K: the top K
-    padded planes of an axis are the periodic planes, the p - 1 below them
-    wrap onto its last p - 1 planes.
-    """
-    g = part[0].copy()
-    for c in range(1, part.shape[0]):
-        g += part[c]
-    for axis in range(3):
-        g = np.moveaxis(g, axis, 0)
-        k = g.shape[0] - (p - 1)
-        out = g[p - 1:].copy()
-        out[k - (p - 1):] += g[:p - 1]
-        g = np.moveaxis(out, 0, axis)
-    return np.ascontiguousarray(g)
+    wx = np.empty(p)
+    wy = np.empty(p)
+    wz = np.empty(p)
+    dw = np.empty(p)
+    ia = np.empty(p, np.int64)
+    ib = np.empty(p, np.int64)
+    ic = np.empty(p, np.int64)
+    for s in range(lo, hi):
+        i = visit[s]
+        ix, tx = _base(px[i], box[0], k1)
+        iy, ty = _base(py[i], box[1], k2)
+        iz, tz = _base(pz[i], box[2], k3)
+        _spline(tx, p, wx, dw)
+        _spline(ty, p, wy, dw)
+        _spline(tz, p, wz, dw)
+        _indices(ix, k1, p, ia)
+        _indices(iy, k2, p, ib)
+        _indices(iz, k3, p, ic)
+        qi = q[i]
+        for a in range(p):
+            qa = qi * wx[a]
+            for b in range(p):
+                qab = qa * wy[b]
+                row = mesh[ia[a], ib[b]]
+                for c in range(p):
+                    row[ic[c]] += qab * wz[c]
 
 
 @numba.njit(parallel=True, cache=True)
-def _interpolate(tx, ty, tz, box, shape, p, phipad, ex, ey, ez, phi):
+def _spread_slabs(px, py, pz, q, box, shape, p, visit, bounds, parity, mesh):
+    nslab = bounds.size - 1
+    for h in numba.prange((nslab - parity + 1) // 2):
+        sl = 2 * h + parity
+        _spread_range(px, py, pz, q, box, shape, p, visit, bounds[sl], bounds[sl + 1], mesh)
+
+
+def _spread(px, py, pz, q, box, shape, p, visit, keys):
+    """Charge mesh (K1, K2, K3) from B-spline spreading (see the comment above)."""
+    k1, k2, k3 = (int(v) for v in shape)
+    mesh = np.zeros((k1, k2, k3))
+    nslab = k1 // p
+    nslab -= nslab % 2
+    if nslab < 2:
+        _spread_range(px, py, pz, q, box, shape, p, visit, 0, visit.size, mesh)
+        return mesh
+    planes = (np.arange(nslab + 1) * k1) // nslab
+    bounds = np.searchsorted(keys, planes * (k2 * k3)).astype(np.int64)
+    _spread_slabs(px, py, pz, q, box, shape, p, visit, bounds, 0, mesh)
+    _spread_slabs(px, py, pz, q, box, shape, p, visit, bounds, 1, mesh)
+    return mesh
+
+
+@numba.njit(parallel=True, cache=True)
+def _interpolate(tx, ty, tz, box, shape, p, phi_mesh, ex, ey, ez, phi):
     k1, k2, k3 = shape[0], shape[1], shape[2]
     s1 = k1 / box[0]
     s2 = k2 / box[1]
     s3 = k3 / box[2]
-    for i in numba.prange(tx.size):
+    m = tx.size
+    nchunk = (m + 255) // 256
+    for ch in numba.prange(nchunk):
         wx = np.empty(p)
         wy = np.empty(p)
         wz = np.empty(p)
         dx = np.empty(p)
         dy = np.empty(p)
         dz = np.empty(p)
-        ix, fx = _base(tx[i], box[0], k1)
-        iy, fy = _base(ty[i], box[1], k2)
-        iz, fz = _base(tz[i], box[2], k3)
-        _spline(fx, p, wx, dx)
-        _spline(fy, p, wy, dy)
-        _spline(fz, p, wz, dz)
-        v = 0.0
-        gx = 0.0
-        gy = 0.0
-        gz = 0.0
-        for a in range(p):
-            ga = ix + p - 1 - a
-            for b in range(p):
-                row = phipad[ga, iy + p - 1 - b]
-                sv = 0.0
-                sd = 0.0
-                for c in range(p):
-                    m = row[iz + c]
-                    sv += wz[p - 1 - c] * m
-                    sd += dz[p - 1 - c] * m
-                v += wx[a] * wy[b] * sv
-                gx += dx[a] * wy[b] * sv
-                gy += wx[a] * dy[b] * sv
-                gz += wx[a] * wy[b] * sd
-        phi[i] = v
-        # E = -grad phi; d/dx M_p(u - g) = (K/L) M_p'(u - g)
-        ex[i] = -s1 * gx
-        ey[i] = -s2 * gy
-        ez[i] = -s3 * gz
+        ia = np.empty(p, np.int64)
+        ib = np.empty(p, np.int64)
+        ic = np.empty(p, np.int64)
+        for i in range(ch * 256, min(m, (ch + 1) * 256)):
+            ix, fx = _base(tx[i], box[0], k1)
+            iy, fy = _base(ty[i], box[1], k2)
+            iz, fz = _base(tz[i], box[2], k3)
+            _spline(fx, p, wx, dx)
+            _spline(fy, p, wy, dy)
+            _spline(fz, p, wz, dz)
+            _indices(ix, k1, p, ia)
+            _indices(iy, k2, p, ib)
+            _indices(iz, k3, p, ic)
+            v = 0.0
+            gx = 0.0
+            gy = 0.0
+            gz = 0.0
+            for a in range(p):
+                for b in range(p):
+                    row = phi_mesh[ia[a], ib[b]]
+                    sv = 0.0
+                    sd = 0.0
+                    for c in range(p):
+                        mv = row[ic[c]]
+                        sv += wz[c] * mv
+                        sd += dz[c] * mv
+                    v += wx[a] * wy[b] * sv
+                    gx += dx[a] * wy[b] * sv
+                    gy += wx[a] * dy[b] * sv
+                    gz += wx[a] * wy[b] * sd
+            phi[i] = v
+            # E = -grad phi; d/dx M_p(u - g) = (K/L) M_p'(u - g)
+            ex[i] = -s1 * gx
+            ey[i] = -s2 * gy
+            ez[i] = -s3 * gz
 
 
 def _moduli(k, p):
@@ -295,14 +314,11 @@ def influence(box, shape, alpha, p):
 
 
 def _visit_order(px, py, pz, box, shape):
-    """Point indices sorted by mesh cell (stable)."""
-    n = px.size
-    cx = np.empty(n, np.int64)
-    cy = np.empty(n, np.int64)
-    cz = np.empty(n, np.int64)
-    key = np.empty(n, np.int64)
-    _cells_of(px, py, pz, box, shape, cx, cy, cz, key)
-    return np.argsort(key, kind="stable")
+    """(indices sorted by mesh cell (stable), the sorted cell keys)."""
+    key = np.empty(px.size, np.int64)
+    _cell_keys(px, py, pz, box, shape, key)
+    visit = np.argsort(key, kind="stable")
+    return visit, key[visit]
 
 
 def _soa(points):
@@ -338,22 +354,22 @@ def reciprocal(sources, charges, targets, alpha, box, shape, order, *, need_fiel
         C/m.
     """
     px, py, pz = _soa(sources)
-    nchunks = max(1, numba.get_num_threads())
-    qmesh = _fold(_spread(px, py, pz, charges, box, shape, order, _visit_order(px, py, pz, box, shape), nchunks), order)
+    visit, keys = _visit_order(px, py, pz, box, shape)
+    qmesh = _spread(px, py, pz, charges, box, shape, order, visit, keys)
     f = scipy.fft.rfftn(qmesh, workers=FFT_WORKERS)
     f *= influence(tuple(box), tuple(int(v) for v in shape), alpha, order)
     phi_mesh = scipy.fft.irfftn(f, s=tuple(int(v) for v in shape), workers=FFT_WORKERS)
-    phipad = np.pad(phi_mesh, ((order - 1, 0),) * 3, mode="wrap")
-    tx, ty, tz = (px, py, pz) if targets is None else _soa(targets)
-    # interpolate in mesh-cell order too (cache locality), then put back
-    visit = _visit_order(tx, ty, tz, box, shape)
-    tx, ty, tz = tx[visit], ty[visit], tz[visit]
+    if targets is not None:
+        px, py, pz = _soa(targets)
+        # interpolate in mesh-cell order too (cache locality), then put back
+        visit, _ = _visit_order(px, py, pz, box, shape)
+    tx, ty, tz = px[visit], py[visit], pz[visit]
     m = tx.size
     ex = np.empty(m)
     ey = np.empty(m)
     ez = np.empty(m)
     phi = np.empty(m)
-    _interpolate(tx, ty, tz, box, shape, order, phipad, ex, ey, ez, phi)
+    _interpolate(tx, ty, tz, box, shape, order, phi_mesh, ex, ey, ez, phi)
     inv = np.empty_like(visit)
     inv[visit] = np.arange(m)
     ex, ey, ez, phi = ex[inv], ey[inv], ez[inv], phi[inv]

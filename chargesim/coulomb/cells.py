@@ -2,11 +2,11 @@
 
 The points are binned into a regular grid of cells no narrower than
 ``cutoff / reach`` and sorted by cell (a counting sort, stable, so within a
-cell particles keep their input order). Everything within the cutoff of a point
-in cell (kx, ky, kz) then lies in the cells kx-reach..kx+reach (and the same
-along y and z). In a periodic box the neighbour cells wrap around and carry an
-image shift, which gives the minimum image when the cutoff is at most half the
-smallest box edge.
+cell particles keep their input order). Everything within the cutoff of a
+point in cell (kx, ky, kz) then lies in the cells kx-reach..kx+reach (and the
+same along y and z). In a periodic box the neighbour cells wrap around and
+carry an image shift, which gives the minimum image when the cutoff is at most
+half the smallest box edge.
 
 The cell grid is a reusable piece: :func:`pairs` (the ``neighbors`` front
 door) and the cutoff evaluator use it, and the real-space part of an Ewald sum
@@ -67,11 +67,14 @@ Numba helpers (``njit``, callable from other kernels):
 ``bin_targets(targets, cells) -> (points, order, start)`` sorts separate
 targets into the source grid's cells the same way (targets of an open grid
 beyond the stencil's reach are left out: no source is within the cutoff).
-Kernels below ``PARALLEL_MIN`` points run serially.
+``run(parallel_kernel, serial_kernel, size, *args)`` calls a kernel pair:
+serial below ``PARALLEL_MIN`` points, else parallel with dynamic scheduling.
 
 The visiting pattern used by the pair and cutoff kernels (per cell: the
 stencil's sources are copied once into contiguous buffers, then each target of
-the cell sweeps them in a long loop that vectorises)::
+the cell sweeps them all in one long branch-free loop that vectorises; this
+measured 2.5x faster than cutting each run to the z window a target's cutoff
+sphere reaches, which halves the candidates but leaves short loops)::
 
     for chunk in numba.prange((ncell + CELL_CHUNK - 1) // CELL_CHUNK):
         lo = np.empty(max_segments(reach), np.int64); hi = ...; sh = np.empty((..., 3))
@@ -181,6 +184,34 @@ def wrap(c, n, length, periodic):
 PARALLEL_MIN = 4096
 
 
+def run(parallel_kernel, serial_kernel, size, *args):
+    """Call the parallel kernel (dynamic scheduling) from PARALLEL_MIN items up, else the serial one.
+
+    Dynamic scheduling hands out the prange iterations a few at a time, so a
+    thread that the operating system holds back (a busy shared machine) does
+    not hold up the others. Results do not depend on it: each output is
+    computed whole by one thread.
+    """
+    if size < PARALLEL_MIN:
+        return serial_kernel(*args)
+    old = numba.set_parallel_chunksize(4)
+    try:
+        return parallel_kernel(*args)
+    finally:
+        numba.set_parallel_chunksize(old)
+
+
+@numba.njit(cache=True)
+def _bounds(pos):
+    lo = pos[0].copy()
+    hi = pos[0].copy()
+    for i in range(1, pos.shape[0]):
+        for a in range(3):
+            lo[a] = min(lo[a], pos[i, a])
+            hi[a] = max(hi[a], pos[i, a])
+    return lo, hi
+
+
 @numba.njit(inline="always")
 def _cell_id(i, pos, origin, width, shape, box, periodic, reach, drop_far, cell):
     ny, nz = shape[1], shape[2]
@@ -248,8 +279,8 @@ def _sort(pos, origin, width, shape, box, periodic, reach, drop_far):
     cell = np.empty(n, np.int64)
     start = np.zeros(int(np.prod(shape)) + 1, np.int64)
     if n:
-        ids = _cell_ids_parallel if n >= PARALLEL_MIN else _cell_ids_serial
-        ids(pos, origin, width, shape, box, periodic, reach, drop_far, cell)
+        run(_cell_ids_parallel, _cell_ids_serial, n, pos, origin, width, shape, box, periodic, reach,
+            drop_far, cell)
     kept = n if not drop_far else int(np.count_nonzero(cell >= 0))
     points = np.empty((3, kept))
     order = np.empty(kept, np.int64)
@@ -316,7 +347,7 @@ def build(positions, cutoff, box=None, *, reach=REACH):
     else:
         bx = np.zeros(3)
         if n:
-            lo, hi = pos.min(axis=0), pos.max(axis=0)
+            lo, hi = _bounds(pos)  # numpy's axis-0 min/max is strided and slow
         else:
             lo = hi = np.zeros(3)
         extent = hi - lo
@@ -598,14 +629,13 @@ def pairs(positions, cutoff, box=None):
     n = cells.order.size
     args = (cells.points, cells.order, cells.start, cells.shape, cells.box, cells.periodic,
             cells.reach, cells.cutoff)
-    rows = _pair_rows_parallel if n >= PARALLEL_MIN else _pair_rows_serial
     offsets = np.zeros(n + 1, np.int64)
-    if n:
-        rows(*args, offsets, np.empty(0, np.int64))  # counts into offsets[1:]
+    if n:  # counts into offsets[1:]
+        run(_pair_rows_parallel, _pair_rows_serial, n, *args, offsets, np.empty(0, np.int64))
     counts = offsets[1:].copy()
     np.cumsum(counts, out=offsets[1:])
     jj = np.empty(int(offsets[-1]), np.int64)
     if jj.size:
-        rows(*args, offsets, jj)
+        run(_pair_rows_parallel, _pair_rows_serial, n, *args, offsets, jj)
     ii = np.repeat(np.arange(n, dtype=np.int64), counts)
     return ii, jj

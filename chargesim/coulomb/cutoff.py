@@ -143,8 +143,10 @@ def _capped(r2, a, inv_lam, screened):
 
 @numba.njit(inline="always", fastmath=_FM)
 def _points_chunk(chunk, points, q, start, shape, box, periodic, reach, tpoints, tstart, tmap,
-                  rc, inv_lam, screened, c0, c1, field, phi, nzero):
+                  rc, inv_lam, kind, c0, c1, field, phi, nzero):
     """Point sources: u - c0 + c1 (r - rc) and field (f - c1)/r per pair, r < rc.
+
+    ``kind`` 0: Coulomb with c1 = 0; 1: Coulomb, shifted force; 2: screened.
 
     The sources of a cell's stencil are copied once into contiguous buffers
     and every target of the cell sweeps them: a long branch-free loop that
@@ -185,51 +187,86 @@ def _points_chunk(chunk, points, q, start, shape, box, periodic, reach, tpoints,
             ay = 0.0
             az = 0.0
             p = 0.0
-            cnt = 0
-            for u in range(k):
-                dx = x - bx[u]
-                dy = y - by[u]
-                dz = z - bz[u]
-                r2 = dx * dx + dy * dy + dz * dz
-                near = r2 < rc2
-                live = near and r2 > 0.0
-                inv = 1.0 / math.sqrt(r2 if live else 1.0)
-                r = r2 * inv
-                if screened:
+            sw = 0.0
+            zc = 0.0
+            # one lean loop per kind, so each vectorises; the shifts are
+            # applied to the sums after the loop (sum_w: live charges)
+            if kind == 0:
+                for u in range(k):
+                    dx = x - bx[u]
+                    dy = y - by[u]
+                    dz = z - bz[u]
+                    r2 = dx * dx + dy * dy + dz * dz
+                    near = r2 < rc2
+                    live = near and r2 > 0.0
+                    inv = 1.0 / math.sqrt(r2 if live else 1.0)
+                    w = bq[u] if live else 0.0
+                    g3 = w * inv * inv * inv
+                    ax += g3 * dx
+                    ay += g3 * dy
+                    az += g3 * dz
+                    p += w * inv
+                    sw += w
+                    zc += 1.0 if (near and not live) else 0.0
+            elif kind == 1:
+                for u in range(k):
+                    dx = x - bx[u]
+                    dy = y - by[u]
+                    dz = z - bz[u]
+                    r2 = dx * dx + dy * dy + dz * dz
+                    near = r2 < rc2
+                    live = near and r2 > 0.0
+                    inv = 1.0 / math.sqrt(r2 if live else 1.0)
+                    w = bq[u] if live else 0.0
+                    g3 = w * inv * (inv * inv - c1)
+                    ax += g3 * dx
+                    ay += g3 * dy
+                    az += g3 * dz
+                    p += w * (inv + c1 * (r2 * inv))
+                    sw += w
+                    zc += 1.0 if (near and not live) else 0.0
+            else:
+                for u in range(k):
+                    dx = x - bx[u]
+                    dy = y - by[u]
+                    dz = z - bz[u]
+                    r2 = dx * dx + dy * dy + dz * dz
+                    near = r2 < rc2
+                    live = near and r2 > 0.0
+                    inv = 1.0 / math.sqrt(r2 if live else 1.0)
+                    r = r2 * inv
                     uu = math.exp(-r * inv_lam) * inv
-                    f = uu * (inv + inv_lam)
-                else:
-                    uu = inv
-                    f = inv * inv
-                w = bq[u] if live else 0.0
-                g3 = w * (f - c1) * inv
-                ax += g3 * dx
-                ay += g3 * dy
-                az += g3 * dz
-                p += w * (uu - c0 + c1 * (r - rc))
-                cnt += 1 if (near and not live) else 0
+                    w = bq[u] if live else 0.0
+                    g3 = w * (uu * (inv + inv_lam) - c1) * inv
+                    ax += g3 * dx
+                    ay += g3 * dy
+                    az += g3 * dz
+                    p += w * (uu + c1 * r)
+                    sw += w
+                    zc += 1.0 if (near and not live) else 0.0
             i = tmap[t]
             field[i, 0] = ax
             field[i, 1] = ay
             field[i, 2] = az
-            phi[i] = p
-            nzero[i] = cnt
+            # u - c0 + c1 (r - rc) summed: sum w u + c1 sum w r - (c0 + c1 rc) sum w
+            phi[i] = p - (c0 + c1 * rc) * sw
+            nzero[i] = int(zc)
 
 
 @numba.njit(parallel=True, fastmath=_FM, cache=True)
 def _sum_points_parallel(points, q, start, shape, box, periodic, reach, tpoints, tstart, tmap,
-                         rc, inv_lam, screened, c0, c1, field, phi, nzero):
+                         rc, inv_lam, kind, c0, c1, field, phi, nzero):
     for chunk in numba.prange((start.size - 1 + _cells.CELL_CHUNK - 1) // _cells.CELL_CHUNK):
         _points_chunk(chunk, points, q, start, shape, box, periodic, reach, tpoints, tstart, tmap,
-                      rc, inv_lam, screened, c0, c1, field, phi, nzero)
+                      rc, inv_lam, kind, c0, c1, field, phi, nzero)
 
 
 @numba.njit(fastmath=_FM, cache=True)
 def _sum_points_serial(points, q, start, shape, box, periodic, reach, tpoints, tstart, tmap,
-                       rc, inv_lam, screened, c0, c1, field, phi, nzero):
+                       rc, inv_lam, kind, c0, c1, field, phi, nzero):
     for chunk in range((start.size - 1 + _cells.CELL_CHUNK - 1) // _cells.CELL_CHUNK):
         _points_chunk(chunk, points, q, start, shape, box, periodic, reach, tpoints, tstart, tmap,
-                      rc, inv_lam, screened, c0, c1, field, phi, nzero)
+                      rc, inv_lam, kind, c0, c1, field, phi, nzero)
 
 
 @numba.njit(inline="always", fastmath=_FM)
@@ -408,19 +445,18 @@ def evaluate(sources, charges, targets, radii, *, need_field=True, need_potentia
     # targets out of reach of every source (open grids) keep zeros
     field, phi = np.zeros((m, 3)), np.zeros(m)
     nzero = np.zeros(m, np.int64)
-    parallel = tmap.size >= _cells.PARALLEL_MIN
     if radii is None:
-        kernel = _sum_points_parallel if parallel else _sum_points_serial
-        kernel(grid.points, qs, *gargs, tpoints, tstart, tmap, rc, inv_lam, screened, c0, c1,
-               field, phi, nzero)
+        kind = 2 if screened else (1 if mode == 2 else 0)
+        _cells.run(_sum_points_parallel, _sum_points_serial, tmap.size, grid.points, qs, *gargs,
+                   tpoints, tstart, tmap, rc, inv_lam, kind, c0, c1, field, phi, nzero)
         allowed = 1 if self_targets else 0  # the self pair sits at r = 0
         rs = trad = np.zeros(1)
     else:
         rs = np.ascontiguousarray(radii[grid.order])
         trad = rs if self_targets else np.zeros(tmap.size)
-        kernel = _sum_spheres_parallel if parallel else _sum_spheres_serial
-        kernel(grid.points, qs, rs, *gargs, tpoints, trad, tstart, tmap, self_targets, rc,
-               inv_lam, screened, mode, c0, c1, field, phi, nzero)
+        _cells.run(_sum_spheres_parallel, _sum_spheres_serial, tmap.size, grid.points, qs, rs,
+                   *gargs, tpoints, trad, tstart, tmap, self_targets, rc, inv_lam, screened, mode,
+                   c0, c1, field, phi, nzero)
         allowed = 0
     if m and nzero.max() > allowed:
         i = int(np.flatnonzero(nzero > allowed)[0])

@@ -84,7 +84,8 @@ def test_layout_root_attributes_and_units(tmp_path):
         f.visititems(visit)
         assert missing == []
         # appendable datasets are chunked and compressed
-        assert f["frames/position"].chunks is not None and f["frames/position"].compression == "gzip"
+        assert f["frames/position"].chunks is not None and f["frames/id"].compression == "gzip"
+        assert f["deposits/position"].compression == "gzip"
         assert f["deposits/position"].maxshape == (None, 3)
 
 

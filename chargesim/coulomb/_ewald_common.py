@@ -359,12 +359,62 @@ def erfc_many(x, table):
 # about 3x faster here than the per-cell gather-and-sweep pattern of
 # cells.py (whose table look-ups for erfc do not vectorise), at 40 neighbours.
 _CHUNK = 256
+# Fast-math flags without the no-NaN/no-inf assumptions (as in direct.py):
+# reassociation lets LLVM vectorise the pair sweep.
+_FM = {"nsz", "arcp", "contract", "afn", "reassoc"}
+
+
+@numba.njit(inline="always", fastmath=_FM)
+def _pair_sweep(k, bdx, bdy, bdz, br2, bq, alpha, table):
+    # the point kernel over a compact list of candidates within the cutoff,
+    # branch-free; r2 = 0 (the particle itself, or a coincident one) gives 0
+    two_over_sqrtpi = 2.0 / math.sqrt(math.pi)
+    fx = 0.0
+    fy = 0.0
+    fz = 0.0
+    p = 0.0
+    for u in range(k):
+        r2 = br2[u]
+        live = r2 > 0.0
+        r2s = r2 if live else 1.0
+        inv = 1.0 / math.sqrt(r2s)
+        x = alpha * r2s * inv
+        e = math.exp(-x * x)
+        xx = x * 8.0
+        far = xx >= 64.0
+        xx = 0.0 if far else xx
+        kk = int(xx)
+        t = xx - kk
+        g = table[kk, 8]
+        g = g * t + table[kk, 7]
+        g = g * t + table[kk, 6]
+        g = g * t + table[kk, 5]
+        g = g * t + table[kk, 4]
+        g = g * t + table[kk, 3]
+        g = g * t + table[kk, 2]
+        g = g * t + table[kk, 1]
+        g = g * t + table[kk, 0]
+        # erfc(x) = exp(-x^2) erfcx(x); beyond x = 8 it is below 1e-29: 0
+        ec = 0.0 if far else e * g
+        w = bq[u] if live else 0.0
+        erfc_r = ec * inv
+        p += w * erfc_r
+        fac = w * (erfc_r + alpha * two_over_sqrtpi * e) * inv * inv
+        fx += fac * bdx[u]
+        fy += fac * bdy[u]
+        fz += fac * bdz[u]
+    return fx, fy, fz, p
 
 
 @numba.njit(parallel=True, cache=True)
-def _real_kernel(tpoints, torder, self_targets, use_radii, rad, trad, q, alpha, rc, table,
-                        points, order, start, shape, width, origin, box, periodic, reach,
-                        ex, ey, ez, phi, bad):
+def _real_kernel(tpoints, torder, self_targets, use_radii, rads, trad, qs, alpha, rc, table,
+                 points, order, start, shape, width, origin, box, periodic, reach,
+                 ex, ey, ez, phi, bad):
+    # Per target (in cell order): the pruned cell segments of cells.segments
+    # are filtered to the candidates within the cutoff (compact buffers),
+    # then swept by the branch-free point kernel; pairs closer than a radius
+    # and coincident points get a scalar pass over the same buffers. qs, rads:
+    # charges and radii in slot order (contiguous reads).
     two_over_sqrtpi = 2.0 / math.sqrt(math.pi)
     rc2 = rc * rc
     px, py, pz = points[0], points[1], points[2]
@@ -374,57 +424,82 @@ def _real_kernel(tpoints, torder, self_targets, use_radii, rad, trad, q, alpha, 
         lo = np.empty(nbuf, np.int64)
         hi = np.empty(nbuf, np.int64)
         sh = np.empty((nbuf, 3))
+        cap = 64
+        bdx = np.empty(cap)
+        bdy = np.empty(cap)
+        bdz = np.empty(cap)
+        br2 = np.empty(cap)
+        bq = np.empty(cap)
+        bs = np.empty(cap, np.int64)
         for t in range(chunk * _CHUNK, min(m, (chunk + 1) * _CHUNK)):
             i = torder[t]
             x, y, z = tpoints[0, t], tpoints[1, t], tpoints[2, t]
-            ri = trad[i] if use_radii else 0.0
             nseg = cells.segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, sh)
-            fx = 0.0
-            fy = 0.0
-            fz = 0.0
-            p = 0.0
-            first_bad = -1
+            tot = cells.segment_total(nseg, lo, hi)
+            if tot > cap:
+                cap = 2 * tot
+                bdx = np.empty(cap)
+                bdy = np.empty(cap)
+                bdz = np.empty(cap)
+                br2 = np.empty(cap)
+                bq = np.empty(cap)
+                bs = np.empty(cap, np.int64)
+            k = 0
+            nzero = 0
             for g in range(nseg):
                 shx, shy, shz = sh[g, 0], sh[g, 1], sh[g, 2]
                 for s in range(lo[g], hi[g]):
-                    j = order[s]
-                    if self_targets and j == i:
-                        continue
                     dx = x - (px[s] + shx)
                     dy = y - (py[s] + shy)
                     dz = z - (pz[s] + shz)
                     r2 = dx * dx + dy * dy + dz * dz
-                    if r2 >= rc2:
+                    if r2 < rc2:
+                        bdx[k] = dx
+                        bdy[k] = dy
+                        bdz[k] = dz
+                        br2[k] = r2
+                        bq[k] = qs[s]
+                        bs[k] = s
+                        k += 1
+                        if r2 == 0.0:
+                            nzero += 1
+            fx, fy, fz, p = _pair_sweep(k, bdx, bdy, bdz, br2, bq, alpha, table)
+            if self_targets:
+                nzero -= 1  # the particle itself
+            bad[i] = -1
+            if use_radii or nzero > 0:
+                ri = trad[i] if use_radii else 0.0
+                for u in range(k):
+                    r2 = br2[u]
+                    s = bs[u]
+                    a = max(rads[s], ri) if use_radii else 0.0
+                    if r2 >= a * a and r2 > 0.0:
                         continue
-                    qj = q[j]
-                    a = max(rad[j], ri) if use_radii else 0.0
                     if r2 == 0.0:
-                        if a == 0.0:
-                            if first_bad < 0:
-                                first_bad = j
+                        j = order[s]
+                        if self_targets and j == i:
                             continue
-                        p += qj * (1.5 / a - alpha * two_over_sqrtpi)
+                        if a == 0.0:
+                            # a point target on a point source
+                            if bad[i] < 0 or j < bad[i]:
+                                bad[i] = j
+                            continue
+                        # sphere kernel minus the smooth erf/r part, at r = 0
+                        p += bq[u] * (1.5 / a - alpha * two_over_sqrtpi)
                         continue
+                    # uniformly charged sphere instead of the point kernel
                     inv = 1.0 / math.sqrt(r2)
-                    ar = alpha * r2 * inv
-                    ec, ex2 = erfc_exp(ar, table)
-                    erfc_r = ec * inv
-                    pot = erfc_r
-                    fac = (erfc_r + alpha * two_over_sqrtpi * ex2) * inv * inv
-                    if r2 < a * a:
-                        a3 = a * a * a
-                        pot += 0.5 * (3.0 * a * a - r2) / a3 - inv
-                        fac += 1.0 / a3 - inv * inv * inv
-                    p += qj * pot
-                    fac *= qj
-                    fx += fac * dx
-                    fy += fac * dy
-                    fz += fac * dz
+                    a3 = a * a * a
+                    qj = bq[u]
+                    p += qj * (0.5 * (3.0 * a * a - r2) / a3 - inv)
+                    fac = qj * (1.0 / a3 - inv * inv * inv)
+                    fx += fac * bdx[u]
+                    fy += fac * bdy[u]
+                    fz += fac * bdz[u]
             ex[i] = fx
             ey[i] = fy
             ez[i] = fz
             phi[i] = p
-            bad[i] = first_bad
 
 
 def real_space(st, sources, charges, targets, radii):
@@ -475,8 +550,8 @@ def real_space(st, sources, charges, targets, radii):
     ez = np.empty(m)
     phi = np.empty(m)
     bad = np.empty(m, dtype=np.int64)
-    _real_kernel(tpoints, torder, self_targets, use_radii, rad, trad, charges, st.alpha, search,
-                 ERFCX_TABLE, grid.points, grid.order, grid.start, grid.shape, grid.width,
+    _real_kernel(tpoints, torder, self_targets, use_radii, rad[grid.order], trad, charges[grid.order],
+                 st.alpha, search, ERFCX_TABLE, grid.points, grid.order, grid.start, grid.shape, grid.width,
                  grid.origin, grid.box, grid.periodic, grid.reach, ex, ey, ez, phi, bad)
     hit = np.flatnonzero(bad >= 0)
     if hit.size:

@@ -314,3 +314,24 @@ def test_matrix_free_newton_and_lanczos_agree_with_dense(monkeypatch):
     assert sparse.converged and sparse.stability.method == "lanczos"
     assert sparse.energy == pytest.approx(dense.energy, rel=1e-13)
     np.testing.assert_allclose(sparse.stability.eigenvalues, dense.stability.eigenvalues[:4], rtol=1e-6)
+
+
+def test_two_like_charges_in_a_periodic_cell_form_bcc():
+    # Two like charges per cubic cell (neutralizing background): they settle
+    # half a body diagonal apart, the body-centred cubic lattice, the
+    # lowest-energy cubic lattice of the one-component plasma (Fuchs 1935,
+    # from memory); cubic symmetry makes the three non-trivial eigenvalues
+    # equal, and the three rigid translations are trivial (analytic)
+    pytest.importorskip("chargesim.coulomb.ewald")
+    edge = 0.02
+    x = np.array([[0.1, 0.2, 0.15], [0.4, 0.45, 0.6]]) * edge
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message=".*net charge.*")
+        res = chargesim.relax(x, 1e-12, box=(edge, edge, edge))
+    assert res.converged and res.method == "ewald"
+    d = res.positions[1] - res.positions[0]
+    d -= np.round(d / edge) * edge
+    np.testing.assert_allclose(np.abs(d), 0.5 * edge, rtol=1e-8)
+    st = res.stability
+    assert st.n_trivial == 3 and st.n_unstable == 0
+    np.testing.assert_allclose(st.eigenvalues, st.eigenvalues.mean(), rtol=1e-5)

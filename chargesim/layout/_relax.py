@@ -10,7 +10,7 @@ Phys. Rev. Lett. 97, 170201 (2006)) is the force-only minimizer, used when
 the applied field has no known potential.
 """
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 from scipy.optimize import Bounds as _ScipyBounds
@@ -97,7 +97,6 @@ class RelaxResult:
     minimizer: str
     constraint: dict
     fixed: np.ndarray
-    starts: list = field(default_factory=list, repr=False)
 
 
 class _Collision(Exception):

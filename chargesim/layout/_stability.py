@@ -173,7 +173,9 @@ class HessianModel:
                 e[c] = 1.0
                 h[:, c] = self.matvec(e)
                 e[c] = 0.0
-        return 0.5 * (h + h.T)
+        h += h.T  # symmetrize in place (round-off of the two triangles)
+        h *= 0.5
+        return h
 
     def dense_allowed(self):
         return self.m <= (DENSE_LIMIT if self.analytic else DENSE_FD_LIMIT)
@@ -227,15 +229,22 @@ def _cross_matrix(a):
 
 
 def _deflated_dense(h, q):
-    """H with the trivial subspace Q projected out and shifted above the spectrum."""
+    """H with the trivial subspace Q projected out and shifted above the spectrum.
+
+    (I - QQ^T) H (I - QQ^T) + sigma QQ^T, formed in place as
+    H - Q B^T - B Q^T with B = HQ - Q (Q^T H Q)/2 - sigma Q/2, so that only
+    one m x m temporary exists at a time. ``h`` is overwritten.
+    """
     if q.shape[1] == 0:
         return h, 0.0
     hq = h @ q
     qhq = q.T @ hq
-    hp = h - q @ hq.T - hq @ q.T + q @ qhq @ q.T
-    sigma = float(np.max(np.sum(np.abs(hp), axis=1))) * 2.0 + 1.0
-    hp += sigma * (q @ q.T)
-    return 0.5 * (hp + hp.T), sigma
+    # Gershgorin bound of the spectrum: the shift puts trivial modes above it
+    sigma = 2.0 * float(np.max(np.sum(np.abs(h), axis=1))) + 1.0
+    b = hq - 0.5 * (q @ qhq) - 0.5 * sigma * q
+    h -= q @ b.T
+    h -= b @ q.T
+    return h, sigma
 
 
 def analyse(system, x_all, forces, length, stiffness, *, method="auto", n_lowest=6,
@@ -282,7 +291,7 @@ def analyse(system, x_all, forces, length, stiffness, *, method="auto", n_lowest
         del h
         values = scipy.linalg.eigh(hp, eigvals_only=True)[: m - d]
         if k_modes > 0:
-            _, vecs = scipy.linalg.eigh(hp, subset_by_index=[0, k_modes - 1])
+            _, vecs = scipy.linalg.eigh(hp, subset_by_index=[0, k_modes - 1], overwrite_a=True)
         else:
             vecs = np.zeros((m, 0))
         complete = True
@@ -344,7 +353,7 @@ def newton_step(model, gradient, trivial, stiffness):
     if model.dense_allowed():
         h = model.dense()
         if d:
-            h += stiffness * (trivial @ trivial.T)
+            h += stiffness * (trivial @ trivial.T)  # lifts the trivial modes off zero
         try:
             return np.linalg.solve(h, -gradient)
         except np.linalg.LinAlgError:

@@ -346,6 +346,7 @@ def _near_spheres(xi, yi, zi, ri, sx, sy, sz, sq, sr, a, b):
 
 @numba.njit(inline="always", fastmath=_FM, error_model="numpy")
 def _far(xi, yi, zi, fb, nf):
+    """Monopole, dipole and quadrupole terms of the far nodes in ``fb``."""
     # one 1-D view per row: plain unit-stride loads, so the loop vectorises
     cx = fb[0]
     cy = fb[1]
@@ -360,16 +361,6 @@ def _far(xi, yi, zi, fb, nf):
     myy = fb[10]
     myz = fb[11]
     mzz = fb[12]
-    oxxx = fb[13]
-    oxxy = fb[14]
-    oxxz = fb[15]
-    oxyy = fb[16]
-    oxyz = fb[17]
-    oxzz = fb[18]
-    oyyy = fb[19]
-    oyyz = fb[20]
-    oyzz = fb[21]
-    ozzz = fb[22]
     ax = 0.0
     ay = 0.0
     az = 0.0
@@ -392,6 +383,46 @@ def _far(xi, yi, zi, fb, nf):
         mrz = mxz[f] * rx + myz[f] * ry + mzz[f] * rz
         dr = dx * rx + dy * ry + dz * rz
         rmr = rx * mrx + ry * mry + rz * mrz
+        s = qq * inv3 + 3.0 * dr * inv5 + 2.5 * rmr * inv5 * inv2
+        ax += s * rx - dx * inv3 - mrx * inv5
+        ay += s * ry - dy * inv3 - mry * inv5
+        az += s * rz - dz * inv3 - mrz * inv5
+        p += qq * inv + dr * inv3 + 0.5 * rmr * inv5
+    return ax, ay, az, p
+
+
+@numba.njit(inline="always", fastmath=_FM, error_model="numpy")
+def _far_octupole(xi, yi, zi, fb, nf):
+    """Octupole terms of the far nodes in ``fb``.
+
+    A loop of its own: with all 23 rows in one loop the registers spill and
+    the sum runs four times slower than the two loops together.
+    """
+    cx = fb[0]
+    cy = fb[1]
+    cz = fb[2]
+    oxxx = fb[13]
+    oxxy = fb[14]
+    oxxz = fb[15]
+    oxyy = fb[16]
+    oxyz = fb[17]
+    oxzz = fb[18]
+    oyyy = fb[19]
+    oyyz = fb[20]
+    oyzz = fb[21]
+    ozzz = fb[22]
+    ax = 0.0
+    ay = 0.0
+    az = 0.0
+    p = 0.0
+    for f in range(nf):
+        rx = xi - cx[f]
+        ry = yi - cy[f]
+        rz = zi - cz[f]
+        r2 = rx * rx + ry * ry + rz * rz
+        inv = 1.0 / np.sqrt(r2)
+        inv2 = inv * inv
+        inv7 = inv2 * inv2 * inv2 * inv
         xx = rx * rx
         yy = ry * ry
         zz = rz * rz
@@ -401,18 +432,17 @@ def _far(xi, yi, zi, fb, nf):
         orx = oxxx[f] * xx + oxxy[f] * xy + oxxz[f] * xz + oxyy[f] * yy + oxyz[f] * yz + oxzz[f] * zz
         ory = oxxy[f] * xx + oxyy[f] * xy + oxyz[f] * xz + oyyy[f] * yy + oyyz[f] * yz + oyzz[f] * zz
         orz = oxxz[f] * xx + oxyz[f] * xy + oxzz[f] * xz + oyyz[f] * yy + oyzz[f] * yz + ozzz[f] * zz
-        trrr = rx * orx + ry * ory + rz * orz
-        inv7 = inv5 * inv2
-        s = qq * inv3 + 3.0 * dr * inv5 + 2.5 * rmr * inv7 + (7.0 / 6.0) * trrr * inv7 * inv2
-        ax += s * rx - dx * inv3 - mrx * inv5 - 0.5 * orx * inv7
-        ay += s * ry - dy * inv3 - mry * inv5 - 0.5 * ory * inv7
-        az += s * rz - dz * inv3 - mrz * inv5 - 0.5 * orz * inv7
-        p += qq * inv + dr * inv3 + 0.5 * rmr * inv5 + trrr * inv7 * (1.0 / 6.0)
+        t = (rx * orx + ry * ory + rz * orz) * inv7
+        s = (7.0 / 6.0) * t * inv2
+        ax += s * rx - 0.5 * orx * inv7
+        ay += s * ry - 0.5 * ory * inv7
+        az += s * rz - 0.5 * orz * inv7
+        p += t * (1.0 / 6.0)
     return ax, ay, az, p
 
 
 @numba.njit(cache=True)
-def _lists(nd, first, nchild, gc, g, theta, direct_max, fb, near, stack):
+def _lists(nd, first, nchild, gc, g, theta, direct_max, octupole, fb, near, stack):
     """Interaction lists of target group ``g``: far nodes into ``fb``, near ranges.
 
     A node is taken as a multipole when every target of the group is at least
@@ -447,8 +477,9 @@ def _lists(nd, first, nchild, gc, g, theta, direct_max, fb, near, stack):
                 fb[c, nf] = nd[k, c]
             for c in range(10):
                 fb[3 + c, nf] = nd[k, 4 + c]
-            for c in range(10):
-                fb[13 + c, nf] = nd[k, 16 + c]
+            if octupole:
+                for c in range(10):
+                    fb[13 + c, nf] = nd[k, 16 + c]
             nf += 1
         elif far or nchild[k] == 0:
             if nl == near.size:
@@ -465,7 +496,7 @@ def _lists(nd, first, nchild, gc, g, theta, direct_max, fb, near, stack):
 
 @numba.njit(parallel=True, fastmath=_FM, cache=True, error_model="numpy")
 def evaluate_groups(nstart, nend, first, nchild, nd, sx, sy, sz, sq, sr, use_radii,
-                    tx, ty, tz, tr, self_targets, gstart, gend, gc, theta, direct_max,
+                    tx, ty, tz, tr, self_targets, gstart, gend, gc, theta, direct_max, octupole,
                     n_blocks, ex, ey, ez, phi, nzero):
     """Field and potential sums at the (Morton-sorted) targets, group by group.
 
@@ -481,12 +512,18 @@ def evaluate_groups(nstart, nend, first, nchild, nd, sx, sy, sz, sq, sr, use_rad
         near = np.empty(256, np.int64)
         stack = np.empty(8 * 64, np.int64)
         for g in range(g0, g1):
-            nf, nl, fb, near = _lists(nd, first, nchild, gc, g, theta, direct_max, fb, near, stack)
+            nf, nl, fb, near = _lists(nd, first, nchild, gc, g, theta, direct_max, octupole, fb, near, stack)
             for i in range(gstart[g], gend[g]):
                 xi = tx[i]
                 yi = ty[i]
                 zi = tz[i]
                 ax, ay, az, p = _far(xi, yi, zi, fb, nf)
+                if octupole:
+                    fx, fy, fz, pp = _far_octupole(xi, yi, zi, fb, nf)
+                    ax += fx
+                    ay += fy
+                    az += fz
+                    p += pp
                 c = 0
                 if use_radii:
                     ri = tr[i]

@@ -335,3 +335,12 @@ def test_two_like_charges_in_a_periodic_cell_form_bcc():
     st = res.stability
     assert st.n_trivial == 3 and st.n_unstable == 0
     np.testing.assert_allclose(st.eigenvalues, st.eigenvalues.mean(), rtol=1e-5)
+
+
+def test_fire_on_the_sphere_reaches_the_thomson_minimum():
+    # Wales & Ulker, Phys. Rev. B 74, 212101 (2006): N = 6, the octahedron;
+    # the force-only minimizer with projection onto the sphere
+    rng = np.random.default_rng(6)
+    res = chargesim.relax(rng.normal(size=(6, 3)), Q1, radius=1.0, minimizer="fire", restarts=2, rng=rng)
+    assert res.minimizer == "fire" and res.converged
+    assert abs(res.energy - THOMSON[6]) <= 1e-6

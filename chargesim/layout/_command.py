@@ -455,12 +455,13 @@ def write_figure(path, spec, result, grid):
         for m, lab, c in ((~fixed, "free", "tab:blue"), (fixed, "fixed", "tab:red")):
             if m.any():
                 a.scatter(*(x[m] / uf).T, s=12, c=c, label=lab)
+        a.set_box_aspect((1, 1, 1))
         a.set_xlabel(f"x ({unit})")
         a.set_ylabel(f"y ({unit})")
-        a.set_zlabel(f"z ({unit})")
+        a.set_zlabel(f"z ({unit})", labelpad=2)
     else:
         a.scatter(spec.positions[~fixed, i0] / uf, spec.positions[~fixed, i1] / uf, s=10, facecolors="none",
-                  edgecolors="0.6", label="start")
+                  edgecolors="0.6", label="given start")
         for m, lab, mk in ((~fixed & pos_q, "free, q > 0", "o"), (~fixed & ~pos_q, "free, q < 0", "o"),
                            (fixed & pos_q, "fixed, q > 0", "s"), (fixed & ~pos_q, "fixed, q < 0", "s")):
             if m.any():
@@ -483,7 +484,8 @@ def write_figure(path, spec, result, grid):
     im = a.pcolormesh(g0, g1, e.T / 1e3, shading="auto", cmap="viridis", norm=LogNorm(vmin=lo / 1e3, vmax=hi / 1e3))
     fig.colorbar(im, ax=a, label="|E| (kV/m)")
     a.contour(g0, g1, p.T, levels=15, colors="w", linewidths=0.6, alpha=0.7)
-    a.scatter(x[:, i0] / uf, x[:, i1] / uf, s=6, c="k")
+    a.scatter(x[:, i0] / uf, x[:, i1] / uf, s=6, c="k", label="charges (projected)")
+    a.legend(loc="upper right", fontsize=8)
     a.set_aspect("equal")
     a.set_xlabel(f"{names[i0]} ({unit})")
     a.set_ylabel(f"{names[i1]} ({unit})")
@@ -498,8 +500,14 @@ def write_figure(path, spec, result, grid):
         colours = np.where(ev < -st.zero_tolerance * st.stiffness_scale, "tab:red",
                            np.where(ev < st.soft_tolerance * st.stiffness_scale, "tab:orange", "tab:green"))
         a.scatter(idx, ev, s=10, c=colours)
-        a.axhline(0.0, color="k", lw=0.6)
-        a.set_yscale("symlog", linthresh=max(st.soft_tolerance * st.stiffness_scale, 1e-300))
+        soft_line = st.soft_tolerance * st.stiffness_scale
+        if np.all(ev > 0):
+            a.set_yscale("log")
+        else:
+            a.axhline(0.0, color="k", lw=0.6)
+            a.set_yscale("symlog", linthresh=max(soft_line, 1e-300))
+        a.axhline(soft_line, color="tab:orange", lw=0.8, ls="--", label="soft threshold")
+        a.legend(loc="lower right", fontsize=8)
     a.set_xlabel("mode index (ascending)")
     a.set_ylabel("Hessian eigenvalue (J/m²)")
     verdict = "stable" if st.stable and st.n_soft == 0 else ("marginal (soft modes)" if st.stable else "UNSTABLE")

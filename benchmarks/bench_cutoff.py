@@ -6,8 +6,9 @@ one whole field evaluation at every particle, neighbour build included: ours
 is ``chargesim.coulomb.cutoff.evaluate`` (plain truncation); the reference
 pipeline is ``scipy.spatial.cKDTree`` + ``query_pairs(output_type='ndarray')``
 + ``np.bincount`` accumulation of the pair fields. Both run in the same
-process, one after the other; medians of a few repeats are printed with their
-ratio and the scaling exponent of our time from the smallest to the largest N.
+process, taking turns repeat after repeat; medians of the repeats are printed
+with their ratio and the scaling exponent of our time from the smallest to the
+largest N.
 
 Usage: python benchmarks/bench_cutoff.py [--quick] [--repeats R]
 (--quick: N = 1e5 only).
@@ -46,21 +47,26 @@ def ours(points, charges, rc):
                            cutoff=rc)[0]
 
 
-def median_time(fn, repeats):
-    times = []
-    out = None
+def interleaved_medians(fns, repeats):
+    """Median time of each function, run in turn repeat after repeat.
+
+    Interleaving spreads the load of a shared machine evenly over the
+    contenders, so their ratio is fair even when the load changes.
+    """
+    times = [[] for _ in fns]
+    outs = [None] * len(fns)
     for _ in range(repeats):
-        t0 = time.perf_counter()
-        out = fn()
-        times.append(time.perf_counter() - t0)
-    return float(np.median(times)), out
+        for k, fn in enumerate(fns):
+            t0 = time.perf_counter()
+            outs[k] = fn()
+            times[k].append(time.perf_counter() - t0)
+    return [float(np.median(t)) for t in times], outs
 
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="N = 1e5 only")
-    ap.add_argument("--repeats", type=int, default=5, help="repeats of our evaluation (median)")
-    ap.add_argument("--ref-repeats", type=int, default=3, help="repeats of the reference pipeline")
+    ap.add_argument("--repeats", type=int, default=3, help="repeats of each contender (median)")
     args = ap.parse_args(argv)
     sizes = [100_000] if args.quick else [100_000, 1_000_000]
     rc = (NEIGHBOURS / (4.0 / 3.0 * math.pi)) ** (1.0 / 3.0)  # unit density
@@ -78,8 +84,8 @@ def main(argv=None):
         edge = n ** (1.0 / 3.0)
         pts = rng.random((n, 3)) * edge
         q = rng.normal(size=n)
-        t_ours, f_ours = median_time(lambda: ours(pts, q, rc), args.repeats)
-        t_ref, (f_ref, npairs) = median_time(lambda: reference_field(pts, q, rc), args.ref_repeats)
+        (t_ours, t_ref), (f_ours, (f_ref, npairs)) = interleaved_medians(
+            [lambda: ours(pts, q, rc), lambda: reference_field(pts, q, rc)], args.repeats)
         diff = float(np.abs(f_ours - f_ref).max() / np.abs(f_ref).max())
         rows.append((n, t_ours, t_ref))
         print(f"{n:>9} {2 * npairs / n:>8.1f} {t_ours:>9.4f} {1e9 * t_ours / n:>10.1f} {t_ref:>16.3f} "

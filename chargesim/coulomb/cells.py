@@ -185,9 +185,10 @@ PARALLEL_MIN = 4096
 
 
 def run(parallel_kernel, serial_kernel, size, *args):
-    """Call the parallel kernel (dynamic scheduling) from PARALLEL_MIN items up, else the serial one.
+    """Call the parallel kernel (dynamic scheduling) from PARALLEL_MIN points up, else the serial one.
 
-    Dynamic scheduling hands out the prange iterations a few at a time, so a
+    For kernels whose prange runs over chunks of cells (CELL_CHUNK). Dynamic
+    scheduling hands out the prange iterations a few at a time, so a
     thread that the operating system holds back (a busy shared machine) does
     not hold up the others. Results do not depend on it: each output is
     computed whole by one thread.
@@ -279,8 +280,10 @@ def _sort(pos, origin, width, shape, box, periodic, reach, drop_far):
     cell = np.empty(n, np.int64)
     start = np.zeros(int(np.prod(shape)) + 1, np.int64)
     if n:
-        run(_cell_ids_parallel, _cell_ids_serial, n, pos, origin, width, shape, box, periodic, reach,
-            drop_far, cell)
+        # one cheap step per point: static scheduling (dynamic would hand out
+        # a few points at a time)
+        ids = _cell_ids_parallel if n >= PARALLEL_MIN else _cell_ids_serial
+        ids(pos, origin, width, shape, box, periodic, reach, drop_far, cell)
     kept = n if not drop_far else int(np.count_nonzero(cell >= 0))
     points = np.empty((3, kept))
     order = np.empty(kept, np.int64)

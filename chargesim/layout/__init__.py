@@ -163,6 +163,9 @@ def relax(positions, charges, *, constraint=None, radius=None, centre=None, poin
             xf, it, msg = _relax.run_start(system, xs, tol=tol, minimizer=minimizer, maxiter=int(max_iterations))
         total_it += it
         out = _relax.finish(system, xf, tol)
+        if out["escaped"].size:
+            msg = (f"{out['escaped'].size} particle(s) ran away (first: {int(out['escaped'][0])}): "
+                   "no equilibrium holds them")
         out["message"] = msg
         outcomes.append(out)
 
@@ -173,13 +176,13 @@ def relax(positions, charges, *, constraint=None, radius=None, centre=None, poin
     best_i = min(range(len(outcomes)), key=lambda i: rank(outcomes[i]))
     best = outcomes[best_i]
     stab = None
-    if stability:
+    if stability and not best["escaped"].size:  # no Hessian for particles at infinity
         stab = _stability.analyse(system, best["positions"], best["forces"], best["length"], best["stiffness"],
                                   method=stability_method, n_lowest=n_modes, zero_tolerance=zero_tolerance,
                                   soft_tolerance=soft_tolerance)
     if not best["converged"]:
-        warn_not_converged(f"relax: residual {best['residual']:.3g} did not reach tolerance {tol:g} "
-                           f"({best['message']})")
+        warn_not_converged(f"relax: not converged, residual {best['residual']:.3g} (tolerance {tol:g}): "
+                           f"{best['message']}")
     return RelaxResult(
         positions=best["positions"],
         energy=float(best["energy"]),
@@ -202,6 +205,7 @@ def relax(positions, charges, *, constraint=None, radius=None, centre=None, poin
         minimizer=minimizer,
         constraint=system.constraint.describe(),
         fixed=system.fixed.copy(),
+        escaped=best["escaped"],
     )
 
 

@@ -405,6 +405,9 @@ def write_results(path, spec, result, grid, *, overwrite=False):
         _ds(g, "converged", np.uint8(result.converged), "1")
         st = result.stability
         s = f.create_group("stability")
+        if st is None:
+            s.attrs["skipped"] = result.message
+            return
         for key in ("n_trivial", "n_unstable", "n_soft", "dimension"):
             s.attrs[key] = int(getattr(st, key))
         s.attrs["stable"] = bool(st.stable)
@@ -494,6 +497,13 @@ def write_figure(path, spec, result, grid):
 
     a = axes[2]
     st = result.stability
+    if st is None:
+        a.text(0.5, 0.5, f"stability not computed:\n{result.message}", ha="center", va="center",
+               transform=a.transAxes, wrap=True)
+        a.set_axis_off()
+        fig.savefig(path, dpi=110)
+        plt.close(fig)
+        return
     ev = st.eigenvalues
     if ev.size:
         idx = np.arange(ev.size)
@@ -571,9 +581,10 @@ def command(args):
             f"{'converged' if result.converged else 'NOT converged: ' + result.message}",
             f"  iterations        {result.iterations} (best of {result.start_energies.size} start(s))",
             f"  nearest neighbour {d.min():.4g} .. {d.max():.4g} m" if d.size else "  nearest neighbour -",
-            f"  stability         {st.n_unstable} unstable, {st.n_soft} soft, {st.n_trivial} trivial of "
-            f"{st.dimension} degrees of freedom; lowest eigenvalue "
-            f"{(st.eigenvalues[0] if st.eigenvalues.size else float('nan')):.4g} J/m^2",
+            ("  stability         not computed" if st is None else
+             f"  stability         {st.n_unstable} unstable, {st.n_soft} soft, {st.n_trivial} trivial of "
+             f"{st.dimension} degrees of freedom; lowest eigenvalue "
+             f"{(st.eigenvalues[0] if st.eigenvalues.size else float('nan')):.4g} J/m^2"),
             f"  max |E| on grid   {emax:.4g} V/m",
             f"  wrote {out}" + (f" and {fig_path}" if fig_path else ""),
         ]

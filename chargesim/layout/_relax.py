@@ -65,7 +65,8 @@ class RelaxResult:
     best_start : int
         Which start the result comes from (0: the given positions).
     stability : Stability or None
-        Hessian eigenvalues at the result (None when not asked).
+        Hessian eigenvalues at the result (None when not asked, or when
+        particles ran away).
     method : str
         Coulomb method used.
     minimizer : str
@@ -74,6 +75,9 @@ class RelaxResult:
         The constraint's parameters.
     fixed : ndarray (N,) of bool
         Which particles were held.
+    escaped : ndarray of int
+        Particles that ran away (farther than 100 layout sizes from the
+        start: nothing holds them); the result then is not converged.
     """
 
     positions: np.ndarray
@@ -97,6 +101,7 @@ class RelaxResult:
     minimizer: str
     constraint: dict
     fixed: np.ndarray
+    escaped: np.ndarray
 
 
 class _Collision(Exception):
@@ -187,6 +192,9 @@ def _lbfgs(system, xf, length, fscale, tol, maxiter, memory=20):
             hist_s, hist_y = [], []
             d = -g
             slope = float(g @ d)
+        if it % 5 == 1 and system.escaped(c.from_vars(z * unit)).size:
+            message = "particles ran away: no equilibrium holds them"
+            break
         if it % 5 == 1:
             # the cap needs only the scale of each particle's neighbourhood:
             # refresh it every few steps (a k-d tree costs as much as a force sum)
@@ -247,6 +255,8 @@ def _fire(system, xf, length, fscale, tol, maxiter):
         fnorm = np.sqrt(np.sum(ft**2, axis=1))
         if fnorm.max() <= tol:
             return x, it, "FIRE reached the tolerance"
+        if it % 5 == 1 and system.escaped(x).size:
+            return x, it, "particles ran away: no equilibrium holds them"
         p = float(np.sum(ft * v))
         if p > 0:
             vn = math.sqrt(float(np.sum(v * v)))
@@ -336,7 +346,7 @@ def run_start(system, x_start_free, *, tol, minimizer, maxiter):
         x_all = system.full(xf)
         length, fscale, _ = system.scales(x_all)
         f = system.forces_only(x_all)
-        if system.residual(x_all, f, fscale) <= tol or iterations >= maxiter:
+        if system.residual(x_all, f, fscale) <= tol or iterations >= maxiter or system.escaped(xf).size:
             break
     return xf, iterations, message
 
@@ -355,6 +365,8 @@ def finish(system, xf, tol):
     if not system.applied.has_energy:
         fe = float("nan")
     d, _ = nearest_neighbours(x_all, system.box)
-    return {"positions": x_all, "pair": pair, "field": fe, "energy": pair + fe, "forces": f,
+    gone = system.escaped(x_all[system.free])
+    return {"positions": x_all, "escaped": system.free[gone], "pair": pair, "field": fe, "energy": pair + fe,
+            "forces": f,
             "tangential": tang, "residual": res, "length": length, "force_scale": fscale,
-            "stiffness": stiff, "nearest": d, "converged": res <= tol}
+            "stiffness": stiff, "nearest": d, "converged": bool(res <= tol and gone.size == 0)}

@@ -17,6 +17,10 @@ from ..coulomb import _checks
 from ..physics.constants import COULOMB_K
 
 
+#: A free particle farther than this many layout sizes from the start has run away.
+ESCAPE_FACTOR = 100.0
+
+
 class AppliedField:
     """An applied (external) field: none, uniform, or a callable.
 
@@ -163,6 +167,16 @@ class LayoutSystem:
         self.applied = applied
         self.method, self.options = self._coulomb_call(method, dict(coulomb_options))
         self.evaluations = 0
+        # a free particle this far from where the layout started has run away:
+        # like charges with nothing to hold them have no equilibrium
+        self.origin = positions.mean(axis=0)
+        if constraint.kind in ("sphere", "box") or box is not None:
+            self.escape_radius = math.inf
+        else:
+            d, _ = nearest_neighbours(positions)
+            spread = float(np.max(np.linalg.norm(positions - self.origin, axis=1)))
+            near = float(np.median(d[np.isfinite(d)])) if np.isfinite(d).any() else 1.0
+            self.escape_radius = ESCAPE_FACTOR * (spread + near)
 
     def _coulomb_call(self, method, options):
         if self.box is not None:
@@ -180,6 +194,13 @@ class LayoutSystem:
             options.pop("accuracy", None)
             return "direct", options
         return chosen, options
+
+    def escaped(self, x_free):
+        """Indices (into the free set) of particles that ran away."""
+        if not math.isfinite(self.escape_radius):
+            return np.zeros(0, dtype=np.int64)
+        r = np.linalg.norm(x_free - self.origin, axis=1)
+        return np.flatnonzero(r > self.escape_radius)
 
     # -- configurations ---------------------------------------------------
     def full(self, x_free):

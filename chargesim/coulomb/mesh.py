@@ -61,12 +61,13 @@ _ALIAS = {4: 0.025, 6: 7e-3, 8: 7e-3, 10: 0.012, 12: 0.02}
 # k-space truncation take the rest). The A_p above were fitted on uniformly
 # random points, whose rms force is inflated by the closest pairs; on a
 # hard-core gas (the meaning of accuracy, see _ewald_common.accuracy_product)
-# the same mesh error is ~3-5x larger relative to the rms force, hence 0.05.
-_MESH_SHARE = 0.05
+# the same mesh error is ~3-5x larger relative to the rms force, hence 0.1
+# (measured total: 0.45-0.55 x accuracy at 1e-3..1e-5 on that gas).
+_MESH_SHARE = 0.1
 # rough costs per spline point (spreading + interpolation) and per mesh point
 # and FFT level (forward + inverse), s: only their ratio matters
-_COST_POINT = 7.0e-9
-_COST_FFT = 1.5e-9
+_COST_POINT = 1.1e-8
+_COST_FFT = 7.0e-9
 
 
 def _good_size(n):

@@ -137,6 +137,48 @@ def test_shifted_forms_and_screening(cloud, periodic):
             _close(p, rp)
 
 
+def test_periodic_field_at_separate_targets(cloud):
+    # cKDTree(boxsize=).sparse_distance_matrix pairs, minimum image in numpy
+    # (general-purpose reference library); targets outside the box are wrapped
+    pts, q = cloud
+    box = np.array([1.0, 0.8, 0.6])
+    rng = np.random.default_rng(67)
+    tgt = rng.random((500, 3)) * 3 * box - box
+    f, p = cut.evaluate(pts, q, tgt, None, cutoff=0.12, truncation="shifted-force", box=box)
+
+    def sf(r):
+        return 1 / r - 1 / 0.12 + (r - 0.12) / 0.12**2, 1 / r**2 - 1 / 0.12**2
+
+    rf, rp = _reference(pts, q, tgt, 0.12, sf, box=box)
+    _close(f, rf)
+    _close(p, rp)
+
+
+def test_sphere_path_matches_point_pairs_outside_contact(cloud):
+    # with radii too small for any pair to touch, the finite-sphere kernel must
+    # give the point-pair sums of every truncation and of screening (numpy over
+    # cKDTree pairs, general-purpose reference library)
+    pts, q = cloud
+    rad = np.full(pts.shape[0], 1e-7)
+    rc, lam = 0.1, 0.04
+
+    def screened(r):
+        e = np.exp(-r / lam)
+        return e / r, e * (1.0 + r / lam) / r**2
+
+    uc, fc = (float(v) for v in screened(np.array(rc)))
+    i, j, d = _pairs(pts, pts, rc)
+    r = np.sqrt(np.sum(d * d, axis=1))
+    assert r[i != j].min() > 2e-7
+    for name, form in (("plain", screened),
+                       ("shifted-potential", lambda r: (screened(r)[0] - uc, screened(r)[1])),
+                       ("shifted-force", lambda r: (screened(r)[0] - uc + (r - rc) * fc, screened(r)[1] - fc))):
+        f, p = cut.evaluate(pts, q, None, rad, cutoff=rc, truncation=name, screening_length=lam)
+        rf, rp = _reference(pts, q, pts, rc, form, self_targets=True)
+        _close(f, rf)
+        _close(p, rp)
+
+
 def test_screened_single_charge_against_formula():
     # Debye–Hückel potential k q e^(-r/λ)/(εr r) and field k q e^(-r/λ)(1 + r/λ)/(εr r^2)
     # (linearised Poisson–Boltzmann, standard result); k from CODATA 2018
@@ -180,6 +222,23 @@ def test_finite_radii_uniform_sphere_inside():
     f, p = cut.evaluate(pts, q, None, rad, cutoff=rc)
     _close(f, rf)
     _close(p, rp)
+
+
+def test_screened_sphere_cap_is_smooth_and_tends_to_uniform_sphere():
+    # inside a screened sphere the documented cap matches value and slope at
+    # r = a (continuity, analytic) and, as λ grows, tends to the uniformly charged
+    # sphere q (3a^2 - r^2)/(2a^3), q r/a^3 (Gauss's law)
+    a, q = 0.01, np.array([2.0])
+    src = np.zeros((1, 3))
+    r = a * np.array([1 - 1e-9, 1 + 1e-9, 0.5, 0.25])
+    tgt = np.stack([r, np.zeros(4), np.zeros(4)], axis=1)
+    f, p = cut.evaluate(src, q, tgt, np.array([a]), cutoff=0.05, screening_length=0.02)
+    np.testing.assert_allclose(p[0], p[1], rtol=1e-8)
+    np.testing.assert_allclose(f[0, 0], f[1, 0], rtol=1e-7)
+    np.testing.assert_allclose(f[2:, 0] / r[2:], f[0, 0] / r[0], rtol=1e-7)  # linear in r inside
+    f, p = cut.evaluate(src, q, tgt[2:], np.array([a]), cutoff=0.05, screening_length=1e9)
+    np.testing.assert_allclose(p, q * (3 * a**2 - r[2:] ** 2) / (2 * a**3), rtol=1e-9)
+    np.testing.assert_allclose(f[:, 0], q * r[2:] / a**3, rtol=1e-9)
 
 
 def test_velocity_verlet_conserves_energy_with_shifted_force():

@@ -120,6 +120,16 @@ def _sum_spheres(sx, sy, sz, q, rad, tx, ty, tz, trad, self_targets, ex, ey, ez,
         nzero[i] = c
 
 
+# The same kernels compiled without threads: below SERIAL_PAIRS pair
+# interactions waking the thread pool costs more than the sum (milliseconds on
+# a loaded machine against microseconds of work).
+_sum_points_serial = numba.njit(fastmath=_FM, cache=True)(_sum_points.py_func)
+_sum_spheres_serial = numba.njit(fastmath=_FM, cache=True)(_sum_spheres.py_func)
+
+#: Pair count below which the serial kernels run.
+SERIAL_PAIRS = 200_000
+
+
 @numba.njit(cache=True)
 def _first_coincidence(sx, sy, sz, rad, tx, ty, tz, trad, self_targets, use_radii):
     for i in range(tx.size):
@@ -171,14 +181,15 @@ def evaluate(sources, charges, targets, radii, *, need_field=True, need_potentia
     ez = np.empty(m)
     phi = np.empty(m)
     nzero = np.empty(m, dtype=np.int64)
+    serial = m * sources.shape[0] < SERIAL_PAIRS
     if radii is None:
-        _sum_points(sx, sy, sz, charges, tx, ty, tz, ex, ey, ez, phi, nzero)
+        (_sum_points_serial if serial else _sum_points)(sx, sy, sz, charges, tx, ty, tz, ex, ey, ez, phi, nzero)
         allowed = 1 if self_targets else 0
         rad = trad = np.zeros(0)
     else:
         rad = radii
         trad = radii if self_targets else np.zeros(m)
-        _sum_spheres(sx, sy, sz, charges, rad, tx, ty, tz, trad, self_targets, ex, ey, ez, phi, nzero)
+        (_sum_spheres_serial if serial else _sum_spheres)(sx, sy, sz, charges, rad, tx, ty, tz, trad, self_targets, ex, ey, ez, phi, nzero)
         allowed = 0
     if m and nzero.max() > allowed:
         i, j = _first_coincidence(sx, sy, sz, rad if radii is not None else np.zeros(sx.size),

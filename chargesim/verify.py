@@ -309,6 +309,82 @@ def _tau():
     return aerosol.relaxation_time(1e-6, 1000.0)
 
 
+# --- motion ---------------------------------------------------------------------------
+
+def _rutherford_tan_half(b_over_d0):
+    """tan(theta/2) of a light charge passing a 1e12 times heavier one (Verlet, adaptive)."""
+    from .motion import Coulomb, ParticleState, Simulation, StepControl, System
+    from .physics.constants import COULOMB_K
+
+    q, m, v0 = 1e-12, 1e-12, 1.0
+    d0 = COULOMB_K * q * q / (m * v0**2)  # distance scale k q1 q2/(mu v0^2)
+    b, length = b_over_d0 * d0, 4000 * d0
+    rho = m / (math.pi / 6 * 1e-18)
+    s = ParticleState()
+    s.add([[-length, b, 0]], [[v0, 0, 0]], diameter=1e-6, density=rho, charge=q)
+    s.add([[0, 0, 0]], diameter=1e-6, density=rho * 1e12, charge=q)
+    system = System(np.random.default_rng(0), particles=s, drag=False, coulomb=Coulomb("direct", radii="none"))
+    ctl = StepControl(tolerance=1e-6 * d0, dt_min=1e-6 * d0 / v0, dt_max=50 * d0 / v0)
+    Simulation(system, dt=1e-3 * d0 / v0, integrator="verlet", step_control=ctl,
+               diagnostics_every=0).run(t_end=2 * length / v0)
+    v = s.velocity[0]
+    return math.tan(math.atan2(v[1], v[0]) / 2)
+
+
+@case("rutherford_angle", 1.0 / 2.0, "Rutherford scattering tan(theta/2) = k q1 q2/(mu v0^2 b), "
+      "b = 2 k q1 q2/(mu v0^2) (any classical mechanics text)", 1e-3)
+def _rutherford():
+    # start and end 4000 distance scales away: the finite path shifts the angle by ~2.5e-4
+    return _rutherford_tan_half(2.0)
+
+
+_GAP, _LEN, _U, _W = 0.1, 1.0, 1.0, 0.05  # plate gap m, length m, gas m/s, migration m/s
+_N_CHANNEL = 2000
+
+
+def _plate_channel_efficiency(eddy):
+    """Collection on one plate of a plug-flow channel (the other wall reflects)."""
+    import numba
+
+    from .motion import (Domain, FixedCharge, FixedSize, Inlet, Medium, PlaneCollector, Population,
+                         RectangleArea, Simulation, System, UniformFlow)
+    from .sources import UniformField
+
+    d, e = 5e-6, 3e5
+    med = Medium(flow=UniformFlow((_U, 0, 0)))
+    q = -_W * 3 * math.pi * med.viscosity * d / (e * med.slip_correction(d))  # w = q E Cc/(3 pi mu d)
+    pop = Population("dust", FixedSize(d), 1000.0, charge=FixedCharge(q))
+    inlet = Inlet(pop, RectangleArea((0, _GAP / 2, 0.05), (0, _GAP, 0), (0, 0, 0.1)), rate=_N_CHANNEL / 0.2,
+                  stop=0.2)
+    plate = PlaneCollector("plate", (0, 0, 0), (0, 1, 0), lo=(0, -1, 0), hi=(_LEN, 1, 0.1))
+    dom = Domain(lo=(-1, 0, 0), hi=(_LEN, _GAP, 0.1), kinds=("open", "reflecting", "periodic"))
+    system = System(np.random.default_rng(5), medium=med, sources=[UniformField((0, e, 0))], domain=dom,
+                    collectors=[plate], inlets=[inlet], coulomb=None, eddy_diffusivity=(0, eddy, 0))
+    threads = numba.get_num_threads()
+    numba.set_num_threads(1)  # the same result on any machine
+    try:
+        summary = Simulation(system, dt=1e-3, diagnostics_every=0).run(t_end=0.2 + _LEN / _U + 0.05)
+    finally:
+        numba.set_num_threads(threads)
+    return summary["collection_efficiency"]
+
+
+# binomial standard error of N = 2000 particles at eta ~ 0.5: 0.011; three of them
+@case("laminar_plate_collection", min(1.0, _W * _LEN / (_U * _GAP)),
+      "laminar plug flow, no mixing: eta = min(1, w L/(u s)) (analytic; Hinds, Aerosol Technology)",
+      0.034, quick=False, absolute=True)
+def _laminar():
+    return _plate_channel_efficiency(0.0)
+
+
+# strong mixing (Peclet w s/D = 0.1): three standard errors plus residual incomplete mixing
+@case("deutsch_anderson_mixing", 1 - math.exp(-_W * _LEN / (_U * _GAP)),
+      "complete lateral mixing: eta = 1 - exp(-w A/Q) (Deutsch 1922, 'Deutsch-Anderson')",
+      0.04, quick=False, absolute=True)
+def _deutsch():
+    return _plate_channel_efficiency(0.05)
+
+
 # --- charging -----------------------------------------------------------------------
 
 _PAUTH_D, _PAUTH_E, _PAUTH_EPS = 5e-6, 400e3, 4.0

@@ -17,7 +17,9 @@ scaling exponent between sizes (N log N is 1.10 from 1e4 to 1e5) and, with
 import argparse
 import math
 import os
+import statistics
 import sys
+import time
 import warnings
 
 import numpy as np
@@ -27,7 +29,7 @@ sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
 
 import chargesim  # noqa: E402
 from chargesim.coulomb import _ewald_common, ewald, mesh  # noqa: E402
-from _timing import median_time, table  # noqa: E402
+from _timing import table  # noqa: E402
 
 DENSITY = 1e6  # particles per m^3 (only the dimensionless setup matters)
 TARGET = 1e-4  # rms relative force error to reach
@@ -76,6 +78,26 @@ def reference_sample(x, q, box, sample):
     return f_rest + f_self
 
 
+def median_times(fn, repeats, warmup=0):
+    """Median wall time and median CPU time (all threads of this process) of fn(), s.
+
+    On the shared machine the wall time depends on the others' load; the CPU
+    time divided by the threads used is what an idle machine would show if
+    the parallel parts scale.
+    """
+    for _ in range(warmup):
+        fn()
+    wall = []
+    cpu = []
+    for _ in range(repeats):
+        w0 = time.perf_counter()
+        c0 = time.process_time()
+        fn()
+        cpu.append(time.process_time() - c0)
+        wall.append(time.perf_counter() - w0)
+    return statistics.median(wall), statistics.median(cpu)
+
+
 def rms_rel(f, ref):
     return float(np.sqrt(np.mean(np.sum((f - ref) ** 2, axis=1)) / np.mean(np.sum(ref ** 2, axis=1))))
 
@@ -121,13 +143,14 @@ def speed(sizes, repeats):
             f = forces(method, x, q, box, acc)
             err = rms_rel(f[sample] / q[sample, None], ref * chargesim.coulomb.COULOMB_K)
             reps = repeats if not (method == "ewald" and n > 30000) else max(1, repeats // 2)
-            t = median_time(lambda: forces(method, x, q, box, acc), repeats=reps, warmup=0)
+            t, c = median_times(lambda: forces(method, x, q, box, acc), reps)
             times[method, n] = t
-            rows.append([n, method, f"{acc:g}", f"{err:.2e}", f"{t:.3f}", reps, describe(method, x, q, box, acc)])
+            rows.append([n, method, f"{acc:g}", f"{err:.2e}", f"{t:.3f}", f"{c:.3f}", reps,
+                         describe(method, x, q, box, acc)])
     print(f"forces at rms relative error <= {TARGET:g} (measured on {SAMPLE} particles against Ewald "
           f"at accuracy {REF_ACCURACY:g}); times are medians, s; load average {os.getloadavg()[0]:.1f} "
           f"on {os.cpu_count()} cores")
-    table(["N", "method", "accuracy", "rms rel err", "median s", "runs", "parameters"], rows)
+    table(["N", "method", "accuracy", "rms rel err", "median s", "cpu s", "runs", "parameters"], rows)
     print()
     ratio_rows = []
     for n in sizes:
@@ -150,10 +173,11 @@ def crossover(repeats):
     rows = []
     for n in (250, 500, 1000, 2000, 4000, 8000):
         x, q, box = system(n, seed=n)
-        te = median_time(lambda: forces("ewald", x, q, box, acc), repeats=repeats)
-        tm = median_time(lambda: forces("mesh", x, q, box, acc), repeats=repeats)
+        te = median_times(lambda: forces("ewald", x, q, box, acc), repeats, warmup=1)[0]
+        tm = median_times(lambda: forces("mesh", x, q, box, acc), repeats, warmup=1)[0]
         rows.append([n, f"{te * 1e3:.1f}", f"{tm * 1e3:.1f}", f"{te / tm:.2f}"])
-    print(f"default accuracy {acc:g}: median ms; ewald.MESH_CROSSOVER = {ewald.MESH_CROSSOVER}")
+    print(f"default accuracy {acc:g}: median ms; ewald.MESH_CROSSOVER = {ewald.MESH_CROSSOVER}; "
+          f"load average {os.getloadavg()[0]:.1f} on {os.cpu_count()} cores")
     table(["N", "Ewald ms", "mesh ms", "Ewald / mesh"], rows)
 
 

@@ -322,6 +322,11 @@ ERFCX_TABLE = _erfcx_table()
 # cells per cutoff of the real-space grid (see cells.REACH)
 _REACH = cells.REACH
 
+#: Inner-loop iterations below which the kernels run serially: waking the
+#: worker threads costs more than it saves there (milliseconds per parallel
+#: region on the loaded 2-core reference machine).
+PARALLEL_WORK = 200_000
+
 
 @numba.njit(inline="always")
 def erfc_exp(x, table):
@@ -406,8 +411,8 @@ def _pair_sweep(k, bdx, bdy, bdz, br2, bq, alpha, table):
     return fx, fy, fz, p
 
 
-@numba.njit(parallel=True, cache=True)
-def _real_kernel(tpoints, torder, self_targets, use_radii, rads, trad, qs, alpha, rc, table,
+@numba.njit(inline="always")
+def _real_chunk(chunk, tpoints, torder, self_targets, use_radii, rads, trad, qs, alpha, rc, table,
                  points, order, start, shape, width, origin, box, periodic, reach,
                  ex, ey, ez, phi, bad):
     # Per target (in cell order): the pruned cell segments of cells.segments
@@ -420,86 +425,101 @@ def _real_kernel(tpoints, torder, self_targets, use_radii, rads, trad, qs, alpha
     px, py, pz = points[0], points[1], points[2]
     m = torder.size
     nbuf = cells.max_segments(reach)
-    for chunk in numba.prange((m + _CHUNK - 1) // _CHUNK):
-        lo = np.empty(nbuf, np.int64)
-        hi = np.empty(nbuf, np.int64)
-        sh = np.empty((nbuf, 3))
-        cap = 64
-        bdx = np.empty(cap)
-        bdy = np.empty(cap)
-        bdz = np.empty(cap)
-        br2 = np.empty(cap)
-        bq = np.empty(cap)
-        bs = np.empty(cap, np.int64)
-        for t in range(chunk * _CHUNK, min(m, (chunk + 1) * _CHUNK)):
-            i = torder[t]
-            x, y, z = tpoints[0, t], tpoints[1, t], tpoints[2, t]
-            nseg = cells.segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, sh)
-            tot = cells.segment_total(nseg, lo, hi)
-            if tot > cap:
-                cap = 2 * tot
-                bdx = np.empty(cap)
-                bdy = np.empty(cap)
-                bdz = np.empty(cap)
-                br2 = np.empty(cap)
-                bq = np.empty(cap)
-                bs = np.empty(cap, np.int64)
-            k = 0
-            nzero = 0
-            for g in range(nseg):
-                shx, shy, shz = sh[g, 0], sh[g, 1], sh[g, 2]
-                for s in range(lo[g], hi[g]):
-                    dx = x - (px[s] + shx)
-                    dy = y - (py[s] + shy)
-                    dz = z - (pz[s] + shz)
-                    r2 = dx * dx + dy * dy + dz * dz
-                    if r2 < rc2:
-                        bdx[k] = dx
-                        bdy[k] = dy
-                        bdz[k] = dz
-                        br2[k] = r2
-                        bq[k] = qs[s]
-                        bs[k] = s
-                        k += 1
-                        if r2 == 0.0:
-                            nzero += 1
-            fx, fy, fz, p = _pair_sweep(k, bdx, bdy, bdz, br2, bq, alpha, table)
-            if self_targets:
-                nzero -= 1  # the particle itself
-            bad[i] = -1
-            if use_radii or nzero > 0:
-                ri = trad[i] if use_radii else 0.0
-                for u in range(k):
-                    r2 = br2[u]
-                    s = bs[u]
-                    a = max(rads[s], ri) if use_radii else 0.0
-                    if r2 >= a * a and r2 > 0.0:
-                        continue
+    lo = np.empty(nbuf, np.int64)
+    hi = np.empty(nbuf, np.int64)
+    sh = np.empty((nbuf, 3))
+    cap = 64
+    bdx = np.empty(cap)
+    bdy = np.empty(cap)
+    bdz = np.empty(cap)
+    br2 = np.empty(cap)
+    bq = np.empty(cap)
+    bs = np.empty(cap, np.int64)
+    for t in range(chunk * _CHUNK, min(m, (chunk + 1) * _CHUNK)):
+        i = torder[t]
+        x, y, z = tpoints[0, t], tpoints[1, t], tpoints[2, t]
+        nseg = cells.segments(x, y, z, rc, start, shape, width, origin, box, periodic, lo, hi, sh)
+        tot = cells.segment_total(nseg, lo, hi)
+        if tot > cap:
+            cap = 2 * tot
+            bdx = np.empty(cap)
+            bdy = np.empty(cap)
+            bdz = np.empty(cap)
+            br2 = np.empty(cap)
+            bq = np.empty(cap)
+            bs = np.empty(cap, np.int64)
+        k = 0
+        nzero = 0
+        for g in range(nseg):
+            shx, shy, shz = sh[g, 0], sh[g, 1], sh[g, 2]
+            for s in range(lo[g], hi[g]):
+                dx = x - (px[s] + shx)
+                dy = y - (py[s] + shy)
+                dz = z - (pz[s] + shz)
+                r2 = dx * dx + dy * dy + dz * dz
+                if r2 < rc2:
+                    bdx[k] = dx
+                    bdy[k] = dy
+                    bdz[k] = dz
+                    br2[k] = r2
+                    bq[k] = qs[s]
+                    bs[k] = s
+                    k += 1
                     if r2 == 0.0:
-                        j = order[s]
-                        if self_targets and j == i:
-                            continue
-                        if a == 0.0:
-                            # a point target on a point source
-                            if bad[i] < 0 or j < bad[i]:
-                                bad[i] = j
-                            continue
-                        # sphere kernel minus the smooth erf/r part, at r = 0
-                        p += bq[u] * (1.5 / a - alpha * two_over_sqrtpi)
+                        nzero += 1
+        fx, fy, fz, p = _pair_sweep(k, bdx, bdy, bdz, br2, bq, alpha, table)
+        if self_targets:
+            nzero -= 1  # the particle itself
+        bad[i] = -1
+        if use_radii or nzero > 0:
+            ri = trad[i] if use_radii else 0.0
+            for u in range(k):
+                r2 = br2[u]
+                s = bs[u]
+                a = max(rads[s], ri) if use_radii else 0.0
+                if r2 >= a * a and r2 > 0.0:
+                    continue
+                if r2 == 0.0:
+                    j = order[s]
+                    if self_targets and j == i:
                         continue
-                    # uniformly charged sphere instead of the point kernel
-                    inv = 1.0 / math.sqrt(r2)
-                    a3 = a * a * a
-                    qj = bq[u]
-                    p += qj * (0.5 * (3.0 * a * a - r2) / a3 - inv)
-                    fac = qj * (1.0 / a3 - inv * inv * inv)
-                    fx += fac * bdx[u]
-                    fy += fac * bdy[u]
-                    fz += fac * bdz[u]
-            ex[i] = fx
-            ey[i] = fy
-            ez[i] = fz
-            phi[i] = p
+                    if a == 0.0:
+                        # a point target on a point source
+                        if bad[i] < 0 or j < bad[i]:
+                            bad[i] = j
+                        continue
+                    # sphere kernel minus the smooth erf/r part, at r = 0
+                    p += bq[u] * (1.5 / a - alpha * two_over_sqrtpi)
+                    continue
+                # uniformly charged sphere instead of the point kernel
+                inv = 1.0 / math.sqrt(r2)
+                a3 = a * a * a
+                qj = bq[u]
+                p += qj * (0.5 * (3.0 * a * a - r2) / a3 - inv)
+                fac = qj * (1.0 / a3 - inv * inv * inv)
+                fx += fac * bdx[u]
+                fy += fac * bdy[u]
+                fz += fac * bdz[u]
+        ex[i] = fx
+        ey[i] = fy
+        ez[i] = fz
+        phi[i] = p
+
+
+@numba.njit(parallel=True, cache=True)
+def _real_parallel(tpoints, torder, self_targets, use_radii, rads, trad, qs, alpha, rc, table,
+                   points, order, start, shape, width, origin, box, periodic, reach, ex, ey, ez, phi, bad):
+    for chunk in numba.prange((torder.size + _CHUNK - 1) // _CHUNK):
+        _real_chunk(chunk, tpoints, torder, self_targets, use_radii, rads, trad, qs, alpha, rc, table,
+                    points, order, start, shape, width, origin, box, periodic, reach, ex, ey, ez, phi, bad)
+
+
+@numba.njit(cache=True)
+def _real_serial(tpoints, torder, self_targets, use_radii, rads, trad, qs, alpha, rc, table,
+                 points, order, start, shape, width, origin, box, periodic, reach, ex, ey, ez, phi, bad):
+    for chunk in range((torder.size + _CHUNK - 1) // _CHUNK):
+        _real_chunk(chunk, tpoints, torder, self_targets, use_radii, rads, trad, qs, alpha, rc, table,
+                    points, order, start, shape, width, origin, box, periodic, reach, ex, ey, ez, phi, bad)
 
 
 def real_space(st, sources, charges, targets, radii):
@@ -550,7 +570,11 @@ def real_space(st, sources, charges, targets, radii):
     ez = np.empty(m)
     phi = np.empty(m)
     bad = np.empty(m, dtype=np.int64)
-    _real_kernel(tpoints, torder, self_targets, use_radii, rad[grid.order], trad, charges[grid.order],
+    # parallel only where the work (targets x candidates) hides the cost of
+    # waking the threads
+    work = m * min(sources.shape[0], 4.0 / 3.0 * math.pi * search ** 3 * sources.shape[0] / st.volume * 4.0)
+    kernel = _real_parallel if work >= PARALLEL_WORK else _real_serial
+    kernel(tpoints, torder, self_targets, use_radii, rad[grid.order], trad, charges[grid.order],
                  st.alpha, search, ERFCX_TABLE, grid.points, grid.order, grid.start, grid.shape, grid.width,
                  grid.origin, grid.box, grid.periodic, grid.reach, ex, ey, ez, phi, bad)
     hit = np.flatnonzero(bad >= 0)

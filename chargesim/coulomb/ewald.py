@@ -55,6 +55,9 @@ OPTIONS = dict(common.COMMON_OPTIONS)
 #: benchmarks/bench_periodic.py on the 2-core reference machine (see below).
 MESH_CROSSOVER = 2000
 
+# Targets per chunk of the parallel k-space loop.
+_CHUNK = 64
+
 # Real-space work per pair relative to reciprocal work per (particle, k) pair:
 # sets the splitting parameter at which the two parts cost the same
 # (alpha^6 ~ c_real pi^3 N / (2 c_k V^2)); measured, see the benchmark.
@@ -104,38 +107,41 @@ def _phases(x, y, z, box, nmax, ex, ey, ez):
         ez[n + nmax[2]] = complex(math.cos(n * tz), math.sin(n * tz))
 
 
-@numba.njit(parallel=True, cache=True)
-def _structure_factor(px, py, pz, q, box, nvec, nmax, nchunks):
+@numba.njit(inline="always")
+def _sf_chunk(c, px, py, pz, q, box, nvec, nmax, nchunks, partial):
     nk = nvec.shape[0]
     n = px.size
-    partial = np.zeros((nchunks, nk), dtype=np.complex128)
-    # fixed chunks (not per-thread scheduling) so the sum order is fixed
-    for c in numba.prange(nchunks):
-        ex = np.empty(2 * nmax[0] + 1, dtype=np.complex128)
-        ey = np.empty(2 * nmax[1] + 1, dtype=np.complex128)
-        ez = np.empty(2 * nmax[2] + 1, dtype=np.complex128)
-        lo = c * n // nchunks
-        hi = (c + 1) * n // nchunks
-        for j in range(lo, hi):
-            _phases(px[j], py[j], pz[j], box, nmax, ex, ey, ez)
-            qj = q[j]
-            for k in range(nk):
-                partial[c, k] += qj * (ex[nvec[k, 0] + nmax[0]] * ey[nvec[k, 1] + nmax[1]]
-                                       * ez[nvec[k, 2] + nmax[2]])
-    s = np.zeros(nk, dtype=np.complex128)
-    for c in range(nchunks):
+    ex = np.empty(2 * nmax[0] + 1, dtype=np.complex128)
+    ey = np.empty(2 * nmax[1] + 1, dtype=np.complex128)
+    ez = np.empty(2 * nmax[2] + 1, dtype=np.complex128)
+    for j in range(c * n // nchunks, (c + 1) * n // nchunks):
+        _phases(px[j], py[j], pz[j], box, nmax, ex, ey, ez)
+        qj = q[j]
         for k in range(nk):
-            s[k] += partial[c, k]
-    return s
+            partial[c, k] += qj * (ex[nvec[k, 0] + nmax[0]] * ey[nvec[k, 1] + nmax[1]]
+                                   * ez[nvec[k, 2] + nmax[2]])
 
 
 @numba.njit(parallel=True, cache=True)
-def _at_targets(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex_out, ey_out, ez_out, phi_out):
+def _sf_parallel(px, py, pz, q, box, nvec, nmax, nchunks, partial):
+    # fixed chunks of particles (not per-thread scheduling): a fixed sum order
+    for c in numba.prange(nchunks):
+        _sf_chunk(c, px, py, pz, q, box, nvec, nmax, nchunks, partial)
+
+
+@numba.njit(cache=True)
+def _sf_serial(px, py, pz, q, box, nvec, nmax, nchunks, partial):
+    for c in range(nchunks):
+        _sf_chunk(c, px, py, pz, q, box, nvec, nmax, nchunks, partial)
+
+
+@numba.njit(inline="always")
+def _targets_chunk(ch, tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex_out, ey_out, ez_out, phi_out):
     nk = nvec.shape[0]
-    for i in numba.prange(tx.size):
-        ex = np.empty(2 * nmax[0] + 1, dtype=np.complex128)
-        ey = np.empty(2 * nmax[1] + 1, dtype=np.complex128)
-        ez = np.empty(2 * nmax[2] + 1, dtype=np.complex128)
+    ex = np.empty(2 * nmax[0] + 1, dtype=np.complex128)
+    ey = np.empty(2 * nmax[1] + 1, dtype=np.complex128)
+    ez = np.empty(2 * nmax[2] + 1, dtype=np.complex128)
+    for i in range(ch * _CHUNK, min(tx.size, (ch + 1) * _CHUNK)):
         _phases(tx[i], ty[i], tz[i], box, nmax, ex, ey, ez)
         p = 0.0
         fx = 0.0
@@ -156,6 +162,18 @@ def _at_targets(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex_out, ey_out, ez_o
         ex_out[i] = -fx
         ey_out[i] = -fy
         ez_out[i] = -fz
+
+
+@numba.njit(parallel=True, cache=True)
+def _targets_parallel(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi):
+    for ch in numba.prange((tx.size + _CHUNK - 1) // _CHUNK):
+        _targets_chunk(ch, tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi)
+
+
+@numba.njit(cache=True)
+def _targets_serial(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi):
+    for ch in range((tx.size + _CHUNK - 1) // _CHUNK):
+        _targets_chunk(ch, tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi)
 
 
 def _soa(points):
@@ -200,14 +218,24 @@ def reciprocal(sources, charges, targets, alpha, box, kc, *, need_field=True, ne
     # 8 pi / V: the 4 pi / V of the full sum, doubled for the -k partner
     coef = (8.0 * math.pi / volume) * np.exp(-k2 / (4.0 * alpha * alpha)) / k2
     px, py, pz = _soa(sources)
-    nchunks = max(1, numba.get_num_threads())
-    s = _structure_factor(px, py, pz, charges, box, nvec, nmax, nchunks)
+    nk = nvec.shape[0]
+    n = px.size
+    # parallel only where the work hides the cost of waking the threads
+    if n * nk >= common.PARALLEL_WORK:
+        nchunks = max(1, numba.get_num_threads())
+        partial = np.zeros((nchunks, nk), dtype=np.complex128)
+        _sf_parallel(px, py, pz, charges, box, nvec, nmax, nchunks, partial)
+    else:
+        partial = np.zeros((1, nk), dtype=np.complex128)
+        _sf_serial(px, py, pz, charges, box, nvec, nmax, 1, partial)
+    s = partial.sum(axis=0)  # row by row: a fixed order
     tx, ty, tz = (px, py, pz) if targets is None else _soa(targets)
     ex = np.empty(m)
     ey = np.empty(m)
     ez = np.empty(m)
     phi = np.empty(m)
-    _at_targets(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi)
+    kernel = _targets_parallel if m * nk >= common.PARALLEL_WORK else _targets_serial
+    kernel(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi)
     field = np.stack((ex, ey, ez), axis=1) if need_field else None
     return field, (phi if need_potential else None)
 

@@ -213,7 +213,8 @@ def _spread(px, py, pz, q, box, shape, p, visit, keys):
     mesh = np.zeros((k1, k2, k3))
     nslab = k1 // p
     nslab -= nslab % 2
-    if nslab < 2:
+    # serial where the work does not hide the cost of waking the threads
+    if nslab < 2 or visit.size * p ** 3 < common.PARALLEL_WORK:
         _spread_range(px, py, pz, q, box, shape, p, visit, 0, visit.size, mesh)
         return mesh
     planes = (np.arange(nslab + 1) * k1) // nslab
@@ -223,56 +224,66 @@ def _spread(px, py, pz, q, box, shape, p, visit, keys):
     return mesh
 
 
-@numba.njit(parallel=True, cache=True)
-def _interpolate(tx, ty, tz, box, shape, p, phi_mesh, ex, ey, ez, phi):
+@numba.njit(inline="always")
+def _interp_chunk(ch, tx, ty, tz, box, shape, p, phi_mesh, ex, ey, ez, phi):
     k1, k2, k3 = shape[0], shape[1], shape[2]
     s1 = k1 / box[0]
     s2 = k2 / box[1]
     s3 = k3 / box[2]
     m = tx.size
-    nchunk = (m + 255) // 256
-    for ch in numba.prange(nchunk):
-        wx = np.empty(p)
-        wy = np.empty(p)
-        wz = np.empty(p)
-        dx = np.empty(p)
-        dy = np.empty(p)
-        dz = np.empty(p)
-        ia = np.empty(p, np.int64)
-        ib = np.empty(p, np.int64)
-        ic = np.empty(p, np.int64)
-        for i in range(ch * 256, min(m, (ch + 1) * 256)):
-            ix, fx = _base(tx[i], box[0], k1)
-            iy, fy = _base(ty[i], box[1], k2)
-            iz, fz = _base(tz[i], box[2], k3)
-            _spline(fx, p, wx, dx)
-            _spline(fy, p, wy, dy)
-            _spline(fz, p, wz, dz)
-            _indices(ix, k1, p, ia)
-            _indices(iy, k2, p, ib)
-            _indices(iz, k3, p, ic)
-            v = 0.0
-            gx = 0.0
-            gy = 0.0
-            gz = 0.0
-            for a in range(p):
-                for b in range(p):
-                    row = phi_mesh[ia[a], ib[b]]
-                    sv = 0.0
-                    sd = 0.0
-                    for c in range(p):
-                        mv = row[ic[c]]
-                        sv += wz[c] * mv
-                        sd += dz[c] * mv
-                    v += wx[a] * wy[b] * sv
-                    gx += dx[a] * wy[b] * sv
-                    gy += wx[a] * dy[b] * sv
-                    gz += wx[a] * wy[b] * sd
-            phi[i] = v
-            # E = -grad phi; d/dx M_p(u - g) = (K/L) M_p'(u - g)
-            ex[i] = -s1 * gx
-            ey[i] = -s2 * gy
-            ez[i] = -s3 * gz
+    wx = np.empty(p)
+    wy = np.empty(p)
+    wz = np.empty(p)
+    dx = np.empty(p)
+    dy = np.empty(p)
+    dz = np.empty(p)
+    ia = np.empty(p, np.int64)
+    ib = np.empty(p, np.int64)
+    ic = np.empty(p, np.int64)
+    for i in range(ch * 256, min(m, (ch + 1) * 256)):
+        ix, fx = _base(tx[i], box[0], k1)
+        iy, fy = _base(ty[i], box[1], k2)
+        iz, fz = _base(tz[i], box[2], k3)
+        _spline(fx, p, wx, dx)
+        _spline(fy, p, wy, dy)
+        _spline(fz, p, wz, dz)
+        _indices(ix, k1, p, ia)
+        _indices(iy, k2, p, ib)
+        _indices(iz, k3, p, ic)
+        v = 0.0
+        gx = 0.0
+        gy = 0.0
+        gz = 0.0
+        for a in range(p):
+            for b in range(p):
+                row = phi_mesh[ia[a], ib[b]]
+                sv = 0.0
+                sd = 0.0
+                for c in range(p):
+                    mv = row[ic[c]]
+                    sv += wz[c] * mv
+                    sd += dz[c] * mv
+                v += wx[a] * wy[b] * sv
+                gx += dx[a] * wy[b] * sv
+                gy += wx[a] * dy[b] * sv
+                gz += wx[a] * wy[b] * sd
+        phi[i] = v
+        # E = -grad phi; d/dx M_p(u - g) = (K/L) M_p'(u - g)
+        ex[i] = -s1 * gx
+        ey[i] = -s2 * gy
+        ez[i] = -s3 * gz
+
+
+@numba.njit(parallel=True, cache=True)
+def _interp_parallel(tx, ty, tz, box, shape, p, phi_mesh, ex, ey, ez, phi):
+    for ch in numba.prange((tx.size + 255) // 256):
+        _interp_chunk(ch, tx, ty, tz, box, shape, p, phi_mesh, ex, ey, ez, phi)
+
+
+@numba.njit(cache=True)
+def _interp_serial(tx, ty, tz, box, shape, p, phi_mesh, ex, ey, ez, phi):
+    for ch in range((tx.size + 255) // 256):
+        _interp_chunk(ch, tx, ty, tz, box, shape, p, phi_mesh, ex, ey, ez, phi)
 
 
 def _moduli(k, p):
@@ -370,7 +381,8 @@ def reciprocal(sources, charges, targets, alpha, box, shape, order, *, need_fiel
     ey = np.empty(m)
     ez = np.empty(m)
     phi = np.empty(m)
-    _interpolate(tx, ty, tz, box, shape, order, phi_mesh, ex, ey, ez, phi)
+    kernel = _interp_parallel if m * order ** 3 >= common.PARALLEL_WORK else _interp_serial
+    kernel(tx, ty, tz, box, shape, order, phi_mesh, ex, ey, ez, phi)
     inv = np.empty_like(visit)
     inv[visit] = np.arange(m)
     ex, ey, ez, phi = ex[inv], ey[inv], ez[inv], phi[inv]

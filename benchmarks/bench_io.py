@@ -3,13 +3,14 @@
 A run of N particles (default 1e5) in a uniform field and gas flow is timed
 without a recorder and with the HDF5 writer, alternately, at the scenario
 defaults' output cadence (50 frames, 10 checkpoints and 200 diagnostics rows
-per run, i.e. a frame every steps/50 steps). Space charge is off: that is the
-cheapest step, so the overhead share printed is an upper bound for runs with
-Coulomb forces on. Prints medians, the overhead ratio, and the throughput
+per run, i.e. a frame every steps/50 steps). Space charge is off unless
+``--coulomb``: that is the cheapest step, so the overhead share printed is an
+upper bound for runs with Coulomb forces on. Prints medians, the overhead ratio, and the throughput
 (bytes written per second of frame / deposit / checkpoint writing).
 
     python benchmarks/bench_io.py            # N = 1e5, 200 steps, 3 repeats
     python benchmarks/bench_io.py --quick    # N = 2e4, 100 steps, 2 repeats
+    python benchmarks/bench_io.py --coulomb --steps 50 --repeats 1
 """
 import argparse
 import os
@@ -20,8 +21,9 @@ import time
 import numpy as np
 
 
-def build(n, steps, seed=1):
-    from chargesim.motion import Medium, ParticleState, PlaneCollector, Simulation, System, UniformFlow, Domain
+def build(n, steps, seed=1, coulomb=False):
+    from chargesim.motion import (Coulomb, Domain, Medium, ParticleState, PlaneCollector, Simulation, System,
+                                  UniformFlow)
     from chargesim.sources import UniformField
 
     rng = np.random.default_rng(seed)
@@ -31,7 +33,8 @@ def build(n, steps, seed=1):
     plate = PlaneCollector("plate", (0, 0, 0), (0, 1, 0), lo=(0, -1, 0), hi=(0.5, 1, 0.1))
     dom = Domain(lo=(-1, -1, 0), hi=(0.5, 1, 0.1), kinds=("open", "open", "periodic"))
     sys_ = System(rng, particles=st, medium=Medium(flow=UniformFlow((1.0, 0, 0))),
-                  sources=[UniformField((0, 3e5, 0))], domain=dom, collectors=[plate], coulomb=None)
+                  sources=[UniformField((0, 3e5, 0))], domain=dom, collectors=[plate],
+                  coulomb=Coulomb() if coulomb else None)
     every = max(1, steps // 50)
     return Simulation(sys_, dt=2e-4, frame_every=every, diagnostics_every=max(1, steps // 200),
                       checkpoint_every=max(1, steps // 10))
@@ -62,6 +65,8 @@ def main():
     ap.add_argument("-n", type=int, default=None, help="particles (default 1e5; quick 2e4)")
     ap.add_argument("--steps", type=int, default=None, help="steps per run (default 200; quick 100)")
     ap.add_argument("--repeats", type=int, default=None, help="timed pairs (default 3; quick 2)")
+    ap.add_argument("--coulomb", action="store_true",
+                    help="space charge on (method auto): the usual case, each step far dearer")
     args = ap.parse_args()
     n = args.n or (20000 if args.quick else 100000)
     steps = args.steps or (100 if args.quick else 200)
@@ -75,13 +80,13 @@ def main():
     bare, rec, inside, sizes = [], [], [], []
     with tempfile.TemporaryDirectory() as tmp:
         for r in range(reps):
-            sim = build(n, steps)
+            sim = build(n, steps, coulomb=args.coulomb)
             t = time.perf_counter()
             sim.run(steps=steps)
             bare.append(time.perf_counter() - t)
 
             path = os.path.join(tmp, f"run{r}.h5")
-            sim = build(n, steps)
+            sim = build(n, steps, coulomb=args.coulomb)
             w = _Timed(ResultsWriter(path, scenario_text="benchmark channel", seed=1))
             t = time.perf_counter()
             sim.run(steps=steps, recorder=w)
@@ -93,7 +98,7 @@ def main():
     frames = steps // max(1, steps // 50) + 1
     raw_frame = n * (8 + 24 + 24 + 8 + 8 + 8 + 4)
     print(f"HDF5 results writer, N = {n}, {steps} steps, {frames} frames, {reps} repeats, "
-          f"{numba.get_num_threads()} threads (medians)")
+          f"{numba.get_num_threads()} threads, space charge {'on' if args.coulomb else 'off'} (medians)")
     print(f"{'run':<28}{'seconds':>10}{'ratio':>8}")
     print(f"{'no recorder':<28}{tb:>10.3f}{1.0:>8.3f}")
     print(f"{'HDF5 writer':<28}{tr:>10.3f}{tr / tb:>8.3f}")

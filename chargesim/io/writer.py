@@ -65,10 +65,13 @@ def _encode_names(values, what):
     arr = np.asarray(values)
     if arr.dtype.kind in "iu":
         raise ValueError(f"{what} must hold names (str), got integers")
-    enc = np.char.encode(arr.astype(str), "utf-8")
-    if enc.size and max(len(b) for b in enc.tolist()) > S.NAME_BYTES:
+    # few distinct names, many events: encode each name once
+    uniq, inv = np.unique(arr.astype(str), return_inverse=True)
+    enc = [u.encode("utf-8") for u in uniq.tolist()]
+    if enc and max(len(b) for b in enc) > S.NAME_BYTES:
         raise ValueError(f"{what}: names are limited to {S.NAME_BYTES} UTF-8 bytes")
-    return enc.astype(S.name_dtype())  # UTF-8 tagged, as the datasets are
+    table = np.array(enc, dtype=S.name_dtype()) if enc else np.zeros(0, dtype=S.name_dtype())
+    return table[inv.reshape(arr.shape)] if arr.size else np.zeros(arr.shape, dtype=S.name_dtype())
 
 
 class ResultsWriter:

@@ -92,71 +92,140 @@ def kvectors(box, kc):
     return np.ascontiguousarray(n[keep]), nmax
 
 
-@numba.njit(cache=True, inline="always")
-def _phases(x, y, z, box, nmax, ex, ey, ez):
-    # exp(i 2 pi n x / L) for n = -nmax..nmax on each axis, by direct
+# Fast-math flags without the no-NaN/no-inf assumptions (as in direct.py):
+# reassociation lets LLVM vectorise the sums over a row of k-vectors.
+_FM = {"nsz", "arcp", "contract", "afn", "reassoc"}
+
+
+def _rows(nvec):
+    """Runs of k-vectors sharing (n1, n2): (n1, n2, first n3, start) per row, and the end.
+
+    kvectors() lists them sorted by n1, n2, n3, and in each row the kept n3
+    are consecutive (a sphere cut, and n3 > 0 on the n1 = n2 = 0 row), so a
+    row is exp(i(k1 x + k2 y)) times a contiguous run of exp(i k3 z).
+    """
+    new = np.ones(nvec.shape[0], dtype=bool)
+    new[1:] = (nvec[1:, 0] != nvec[:-1, 0]) | (nvec[1:, 1] != nvec[:-1, 1])
+    start = np.flatnonzero(new)
+    rows = np.empty((start.size, 4), dtype=np.int64)
+    rows[:, 0] = nvec[start, 0]
+    rows[:, 1] = nvec[start, 1]
+    rows[:, 2] = nvec[start, 2]
+    rows[:, 3] = start
+    return rows, np.int64(nvec.shape[0])
+
+
+@numba.njit(inline="always")
+def _phases(x, y, z, box, nmax, cx, sx, cy, sy, cz, sz):
+    # cos and sin of 2 pi n x / L for n = -nmax..nmax on each axis, by direct
     # evaluation (a recurrence would accumulate rounding over many n)
     tx = 2.0 * math.pi * x / box[0]
     ty = 2.0 * math.pi * y / box[1]
     tz = 2.0 * math.pi * z / box[2]
     for n in range(-nmax[0], nmax[0] + 1):
-        ex[n + nmax[0]] = complex(math.cos(n * tx), math.sin(n * tx))
+        cx[n + nmax[0]] = math.cos(n * tx)
+        sx[n + nmax[0]] = math.sin(n * tx)
     for n in range(-nmax[1], nmax[1] + 1):
-        ey[n + nmax[1]] = complex(math.cos(n * ty), math.sin(n * ty))
+        cy[n + nmax[1]] = math.cos(n * ty)
+        sy[n + nmax[1]] = math.sin(n * ty)
     for n in range(-nmax[2], nmax[2] + 1):
-        ez[n + nmax[2]] = complex(math.cos(n * tz), math.sin(n * tz))
+        cz[n + nmax[2]] = math.cos(n * tz)
+        sz[n + nmax[2]] = math.sin(n * tz)
+
+
+@numba.njit(inline="always", fastmath=_FM)
+def _sf_row(qj, ar, ai, cz, sz, z0, lo, hi, s_re, s_im):
+    for k in range(lo, hi):
+        u = z0 + k - lo
+        s_re[k] += qj * (ar * cz[u] - ai * sz[u])
+        s_im[k] += qj * (ar * sz[u] + ai * cz[u])
 
 
 @numba.njit(inline="always")
-def _sf_chunk(c, px, py, pz, q, box, nvec, nmax, nchunks, partial):
-    nk = nvec.shape[0]
+def _sf_chunk(c, px, py, pz, q, box, rows, nk, nmax, nchunks, s_re, s_im):
     n = px.size
-    ex = np.empty(2 * nmax[0] + 1, dtype=np.complex128)
-    ey = np.empty(2 * nmax[1] + 1, dtype=np.complex128)
-    ez = np.empty(2 * nmax[2] + 1, dtype=np.complex128)
+    cx = np.empty(2 * nmax[0] + 1)
+    sx = np.empty(2 * nmax[0] + 1)
+    cy = np.empty(2 * nmax[1] + 1)
+    sy = np.empty(2 * nmax[1] + 1)
+    cz = np.empty(2 * nmax[2] + 1)
+    sz = np.empty(2 * nmax[2] + 1)
+    nrow = rows.shape[0]
     for j in range(c * n // nchunks, (c + 1) * n // nchunks):
-        _phases(px[j], py[j], pz[j], box, nmax, ex, ey, ez)
+        _phases(px[j], py[j], pz[j], box, nmax, cx, sx, cy, sy, cz, sz)
         qj = q[j]
-        for k in range(nk):
-            partial[c, k] += qj * (ex[nvec[k, 0] + nmax[0]] * ey[nvec[k, 1] + nmax[1]]
-                                   * ez[nvec[k, 2] + nmax[2]])
+        for r in range(nrow):
+            a = rows[r, 0] + nmax[0]
+            b = rows[r, 1] + nmax[1]
+            # exp(i(k1 x + k2 y))
+            ar = cx[a] * cy[b] - sx[a] * sy[b]
+            ai = cx[a] * sy[b] + sx[a] * cy[b]
+            hi = rows[r + 1, 3] if r + 1 < nrow else nk
+            _sf_row(qj, ar, ai, cz, sz, rows[r, 2] + nmax[2], rows[r, 3], hi, s_re[c], s_im[c])
 
 
 @numba.njit(parallel=True, cache=True)
-def _sf_parallel(px, py, pz, q, box, nvec, nmax, nchunks, partial):
+def _sf_parallel(px, py, pz, q, box, rows, nk, nmax, nchunks, s_re, s_im):
     # fixed chunks of particles (not per-thread scheduling): a fixed sum order
     for c in numba.prange(nchunks):
-        _sf_chunk(c, px, py, pz, q, box, nvec, nmax, nchunks, partial)
+        _sf_chunk(c, px, py, pz, q, box, rows, nk, nmax, nchunks, s_re, s_im)
 
 
 @numba.njit(cache=True)
-def _sf_serial(px, py, pz, q, box, nvec, nmax, nchunks, partial):
+def _sf_serial(px, py, pz, q, box, rows, nk, nmax, nchunks, s_re, s_im):
     for c in range(nchunks):
-        _sf_chunk(c, px, py, pz, q, box, nvec, nmax, nchunks, partial)
+        _sf_chunk(c, px, py, pz, q, box, rows, nk, nmax, nchunks, s_re, s_im)
+
+
+@numba.njit(inline="always", fastmath=_FM)
+def _target_row(ar, ai, cz, sz, z0, lo, hi, s_re, s_im, coef, kx, ky, kz):
+    p = 0.0
+    fx = 0.0
+    fy = 0.0
+    fz = 0.0
+    for k in range(lo, hi):
+        u = z0 + k - lo
+        er = ar * cz[u] - ai * sz[u]
+        ei = ar * sz[u] + ai * cz[u]
+        # S(k) exp(-i k.r) = S conj(e)
+        re = s_re[k] * er + s_im[k] * ei
+        im = s_im[k] * er - s_re[k] * ei
+        p += coef[k] * re
+        w = coef[k] * im
+        fx += w * kx[k]
+        fy += w * ky[k]
+        fz += w * kz[k]
+    return p, fx, fy, fz
 
 
 @numba.njit(inline="always")
-def _targets_chunk(ch, tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex_out, ey_out, ez_out, phi_out):
-    nk = nvec.shape[0]
-    ex = np.empty(2 * nmax[0] + 1, dtype=np.complex128)
-    ey = np.empty(2 * nmax[1] + 1, dtype=np.complex128)
-    ez = np.empty(2 * nmax[2] + 1, dtype=np.complex128)
+def _targets_chunk(ch, tx, ty, tz, box, rows, nk, nmax, coef, s_re, s_im, kx, ky, kz, ex_out, ey_out, ez_out,
+                   phi_out):
+    cx = np.empty(2 * nmax[0] + 1)
+    sx = np.empty(2 * nmax[0] + 1)
+    cy = np.empty(2 * nmax[1] + 1)
+    sy = np.empty(2 * nmax[1] + 1)
+    cz = np.empty(2 * nmax[2] + 1)
+    sz = np.empty(2 * nmax[2] + 1)
+    nrow = rows.shape[0]
     for i in range(ch * _CHUNK, min(tx.size, (ch + 1) * _CHUNK)):
-        _phases(tx[i], ty[i], tz[i], box, nmax, ex, ey, ez)
+        _phases(tx[i], ty[i], tz[i], box, nmax, cx, sx, cy, sy, cz, sz)
         p = 0.0
         fx = 0.0
         fy = 0.0
         fz = 0.0
-        for k in range(nk):
-            e = ex[nvec[k, 0] + nmax[0]] * ey[nvec[k, 1] + nmax[1]] * ez[nvec[k, 2] + nmax[2]]
-            # S(k) exp(-i k.r) = S conj(e)
-            re = s[k].real * e.real + s[k].imag * e.imag
-            im = s[k].imag * e.real - s[k].real * e.imag
-            p += coef[k] * re
-            w = coef[k] * im
-            fx += w * kvec[k, 0]
-            fy += w * kvec[k, 1]
-            fz += w * kvec[k, 2]
+        for r in range(nrow):
+            a = rows[r, 0] + nmax[0]
+            b = rows[r, 1] + nmax[1]
+            ar = cx[a] * cy[b] - sx[a] * sy[b]
+            ai = cx[a] * sy[b] + sx[a] * cy[b]
+            hi = rows[r + 1, 3] if r + 1 < nrow else nk
+            dp, dx, dy, dz = _target_row(ar, ai, cz, sz, rows[r, 2] + nmax[2], rows[r, 3], hi, s_re, s_im,
+                                         coef, kx, ky, kz)
+            p += dp
+            fx += dx
+            fy += dy
+            fz += dz
         phi_out[i] = p
         # E = -grad phi = -(4 pi/V) sum A k Im[S exp(-i k.r)]
         ex_out[i] = -fx
@@ -165,15 +234,15 @@ def _targets_chunk(ch, tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex_out, ey_ou
 
 
 @numba.njit(parallel=True, cache=True)
-def _targets_parallel(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi):
+def _targets_parallel(tx, ty, tz, box, rows, nk, nmax, coef, s_re, s_im, kx, ky, kz, ex, ey, ez, phi):
     for ch in numba.prange((tx.size + _CHUNK - 1) // _CHUNK):
-        _targets_chunk(ch, tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi)
+        _targets_chunk(ch, tx, ty, tz, box, rows, nk, nmax, coef, s_re, s_im, kx, ky, kz, ex, ey, ez, phi)
 
 
 @numba.njit(cache=True)
-def _targets_serial(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi):
+def _targets_serial(tx, ty, tz, box, rows, nk, nmax, coef, s_re, s_im, kx, ky, kz, ex, ey, ez, phi):
     for ch in range((tx.size + _CHUNK - 1) // _CHUNK):
-        _targets_chunk(ch, tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi)
+        _targets_chunk(ch, tx, ty, tz, box, rows, nk, nmax, coef, s_re, s_im, kx, ky, kz, ex, ey, ez, phi)
 
 
 def _soa(points):
@@ -220,22 +289,24 @@ def reciprocal(sources, charges, targets, alpha, box, kc, *, need_field=True, ne
     px, py, pz = _soa(sources)
     nk = nvec.shape[0]
     n = px.size
+    rows, _ = _rows(nvec)
     # parallel only where the work hides the cost of waking the threads
-    if n * nk >= common.PARALLEL_WORK:
-        nchunks = max(1, numba.get_num_threads())
-        partial = np.zeros((nchunks, nk), dtype=np.complex128)
-        _sf_parallel(px, py, pz, charges, box, nvec, nmax, nchunks, partial)
-    else:
-        partial = np.zeros((1, nk), dtype=np.complex128)
-        _sf_serial(px, py, pz, charges, box, nvec, nmax, 1, partial)
-    s = partial.sum(axis=0)  # row by row: a fixed order
+    nchunks = max(1, numba.get_num_threads()) if n * nk >= common.PARALLEL_WORK else 1
+    s_re = np.zeros((nchunks, nk))
+    s_im = np.zeros((nchunks, nk))
+    sf = _sf_parallel if nchunks > 1 else _sf_serial
+    sf(px, py, pz, charges, box, rows, nk, nmax, nchunks, s_re, s_im)
+    # chunk by chunk: a fixed order
+    s_re = s_re.sum(axis=0)
+    s_im = s_im.sum(axis=0)
     tx, ty, tz = (px, py, pz) if targets is None else _soa(targets)
     ex = np.empty(m)
     ey = np.empty(m)
     ez = np.empty(m)
     phi = np.empty(m)
+    kt = np.ascontiguousarray(kvec.T)
     kernel = _targets_parallel if m * nk >= common.PARALLEL_WORK else _targets_serial
-    kernel(tx, ty, tz, box, nvec, nmax, coef, s, kvec, ex, ey, ez, phi)
+    kernel(tx, ty, tz, box, rows, nk, nmax, coef, s_re, s_im, kt[0], kt[1], kt[2], ex, ey, ez, phi)
     field = np.stack((ex, ey, ez), axis=1) if need_field else None
     return field, (phi if need_potential else None)
 

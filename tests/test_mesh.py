@@ -189,7 +189,7 @@ def test_same_bits_on_one_and_two_threads():
     import numba
 
     box = np.ones(3)
-    x, q = random_neutral(4000, box, seed=31)
+    x, q = random_neutral(12000, box, seed=31)  # large enough for the parallel slabs
     before = numba.get_num_threads()
     try:
         numba.set_num_threads(1)

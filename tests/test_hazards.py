@@ -43,6 +43,44 @@ def test_breakdown_field_scaling():
     assert hazards.breakdown_field(2 * 293.15) == pytest.approx(1.5e6, rel=1e-12)
 
 
+def test_peek_corona_onset_field():
+    # Peek's law (F. W. Peek, Dielectric Phenomena in High Voltage Engineering, 1929; constants from memory):
+    # E_c = 3.1 MV/m delta (1 + 0.0308/sqrt(delta r)), r in m; a 1.5 mm wire at 20 degC, 1 atm (delta = 1)
+    assert hazards.corona_onset_field(1.5e-3) == pytest.approx(3.1e6 * (1 + 0.0308 / math.sqrt(1.5e-3)), rel=1e-12)
+    assert hazards.corona_onset_field(1.5e-3) == pytest.approx(5.565e6, rel=1e-3)
+    # delta from the ideal gas, 1 at 20 degC and 1 atm (the breakdown field's density factor)
+    delta = 293.15 / 423.15
+    assert hazards.relative_air_density(423.15) == pytest.approx(delta, rel=1e-12)
+    assert hazards.corona_onset_field(1.5e-3, temperature=423.15) == pytest.approx(
+        3.1e6 * delta * (1 + 0.0308 / math.sqrt(delta * 1.5e-3)), rel=1e-12)
+    # Peek's surface factor m multiplies the onset field; thinner wires need a higher surface field
+    assert hazards.corona_onset_field(1e-3, roughness=0.8) == pytest.approx(0.8 * hazards.corona_onset_field(1e-3))
+    assert hazards.corona_onset_field(0.1e-3) > hazards.corona_onset_field(1e-3)
+    with pytest.raises(ValueError, match="roughness"):
+        hazards.corona_onset_field(1e-3, roughness=1.2)
+
+
+def test_corona_electrode_onset_and_sparkover():
+    # a wire above onset is informational (corona intended), not a breakdown hazard (Peek's law, from memory)
+    wire = {"name": "wire", "peak_field": 7e6, "gap_field": 0.4e6, "corona_wire_radius": 1.5e-3}
+    found = hazards.assess(fields=[wire])
+    assert [(f.kind, f.severity) for f in found] == [("corona_onset", "info")]
+    assert found[0].value == 7e6 and found[0].threshold == pytest.approx(hazards.corona_onset_field(1.5e-3))
+    assert found[0].to_dict()["severity"] == "info" and found[0].units == "V/m"
+    # below onset: no corona, the particles are not charged
+    low = hazards.assess(fields=[dict(wire, peak_field=4e6)])
+    assert [f.kind for f in low] == ["no_corona"] and "particles will not be charged" in low[0].message
+    # the mean gap field against 3 MV/m x relative density (common practice) decides sparkover
+    hot = hazards.assess(fields=[dict(wire, gap_field=3.2e6)])
+    assert [f.kind for f in hot] == ["corona_onset", "breakdown"]
+    assert hot[1].value == 3.2e6 and hot[1].threshold == pytest.approx(3e6) and "sparkover" in hot[1].message
+    near = hazards.assess(fields=[dict(wire, gap_field=2.5e6)])
+    assert [f.kind for f in near] == ["corona_onset", "breakdown_margin"]
+    # a corona electrode without its gap field cannot be checked for sparkover
+    with pytest.raises(ValueError, match="gap field"):
+        hazards.assess(fields=[{"name": "wire", "peak_field": 7e6, "corona_wire_radius": 1.5e-3}])
+
+
 def test_minimum_ignition_energies():
     # electrostatic-hazard guidance standards, from memory: hydrogen about 0.02 mJ,
     # many hydrocarbons and solvents 0.2-0.3 mJ, dusts larger
@@ -67,6 +105,7 @@ def test_hot_gap_raises_breakdown_finding():
     # 2.6 MV/m sits within the default margin (80 % of breakdown)
     near = hazards.assess(fields=[{"name": "wire", "peak_field": 2.6e6}])
     assert [f.kind for f in near] == ["breakdown_margin"]
+    assert f.severity == "hazard" and "expect corona or sparkover" in f.message
     # at half an atmosphere the same 2 MV/m gap is over breakdown
     low_p = hazards.assess(fields=[("gap", 2e6)], pressure=0.5 * 101325)
     assert [f.kind for f in low_p] == ["breakdown"]

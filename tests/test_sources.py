@@ -51,6 +51,9 @@ def test_parallel_plates_V_over_d():
     hot = ParallelPlates(2, positions=(0.01, 0.0), potentials=(35e3, 0.0), name="hot gap")
     assert hot.peak_field() == pytest.approx(3.5e6)
     assert [f.kind for f in hazards.assess(fields=[hot])] == ["breakdown"]
+    # plates are not corona electrodes: their gap field itself is checked against breakdown
+    assert src.corona_wire_radius is None and hot.corona_wire_radius is None
+    assert "peak field 3.5 MV/m" in hazards.assess(fields=[hot])[0].message
 
 
 def test_wire_in_tube_against_analytic_field():
@@ -147,6 +150,32 @@ def test_single_wire_between_plates_charge():
     assert src.line_charge()[0] == pytest.approx(2 * math.pi * EPS0 * v / math.log(4 * s / (math.pi * a)), rel=1e-12)
     # the surface field of a thin wire is about lambda/(2 pi eps0 a)
     assert src.peak_field() == pytest.approx(src.line_charge()[0] / (2 * math.pi * EPS0 * a), rel=2e-2)
+
+
+def test_corona_wires_checked_for_onset_and_sparkover():
+    # wire-plate channel: wire surface field against Peek's onset field (Peek 1929, from memory), the mean
+    # field V/s against 3 MV/m x relative gas density (common practice) for sparkover
+    v, a, s = -22e3, 0.5e-3, 0.01
+    src = WirePlateChannel(v, a, s, 0.05, n_wires=3, name="tight channel")
+    assert src.corona_wire_radius == a and src.gap_field() == pytest.approx(22e3 / 0.01)
+    assert src.peak_field() > hazards.corona_onset_field(a)
+    # 2.2 MV/m at 20 degC, 1 atm: below 80 % of 3 MV/m, corona but no sparkover finding
+    assert [f.kind for f in hazards.assess(fields=[src])] == ["corona_onset"]
+    # at 150 degC the gas density is 293.15/423.15 of that at 20 degC: breakdown at 2.08 MV/m < 2.2 MV/m
+    hot = hazards.assess(fields=[src], temperature=423.15)
+    assert [f.kind for f in hot] == ["corona_onset", "breakdown"]
+    assert hot[1].value == pytest.approx(2.2e6) and hot[1].threshold == pytest.approx(3e6 * 293.15 / 423.15)
+    assert "sparkover" in hot[1].message and hot[1].name == "tight channel"
+    # 35 kV over 10 mm: 3.5 MV/m exceeds 3 MV/m at 20 degC, 1 atm
+    over = WirePlateChannel(35e3, a, s, 0.05, n_wires=3)
+    assert [f.kind for f in hazards.assess(fields=[over])] == ["corona_onset", "breakdown"]
+    # a wire in a tube at 5 kV: surface field V/(a ln(b/a)) = 1.09 MV/m, below onset (6.1 MV/m): no corona
+    tube = WireInTube(5e3, 1e-3, 0.1)
+    assert tube.corona_wire_radius == 1e-3 and tube.gap_field() == pytest.approx(5e3 / 0.1)
+    low = hazards.assess(fields=[tube])
+    assert [f.kind for f in low] == ["no_corona"] and low[0].severity == "info"
+    assert low[0].value == pytest.approx(5e3 / (1e-3 * math.log(100.0)))
+    assert low[0].threshold == pytest.approx(3.1e6 * (1 + 0.0308 / math.sqrt(1e-3)))
 
 
 def test_periodic_row_equals_long_finite_row_in_the_middle():

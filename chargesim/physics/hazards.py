@@ -1,8 +1,15 @@
-"""Electrostatic safety relations and checks: breakdown, stored energy, ignition.
+"""Electrostatic safety relations and checks: breakdown, corona onset, stored energy, ignition.
 
 Pure functions and small records, SI units. :func:`assess` turns the peak
 electrode fields and the isolated conductors of a design into a list of
 :class:`Finding` records; the command line prints them and :data:`CAUTIONS`.
+
+Corona electrodes (the wires of a wire-plate channel, a wire in a tube) are
+meant to run above corona onset: for them :func:`assess` reports whether
+corona starts (the surface field against Peek's onset field, an
+informational finding) and checks the mean field across the gap against the
+breakdown strength of air (sparkover). Other electrodes have their peak
+surface or gap field checked against the breakdown strength.
 
 These are engineering estimates. They do not replace a hazard assessment by a
 competent person under the codes that apply where the equipment is used.
@@ -22,6 +29,13 @@ HUMAN_BODY_CAPACITANCE = 100e-12
 #: Dielectric strength of air at 20 degC and 1 atm for gaps of centimetres,
 #: V/m (common practice; Paschen's law behind it).
 AIR_BREAKDOWN_FIELD = 3.0e6
+#: Peek's law for the corona onset field at the surface of a wire in a coaxial
+#: (wire-cylinder) gap, E_c = m 3.1e6 delta (1 + 0.0308/sqrt(delta r)) V/m with
+#: r in m (F. W. Peek, Dielectric Phenomena in High Voltage Engineering, 1929;
+#: constants from memory: 31 kV/cm and 0.308 cm^0.5 in Peek's units).
+PEEK_FIELD = 3.1e6
+#: The radius term of Peek's law, m^0.5 (from memory, see :data:`PEEK_FIELD`).
+PEEK_RADIUS_TERM = 0.0308
 #: Default margin: a field above this fraction of breakdown is reported.
 DEFAULT_MARGIN = 0.8
 #: A person whose potential exceeds this is reported as charged, V. Chosen well
@@ -140,13 +154,36 @@ def _eps(eps_r):
     return e
 
 
+def relative_air_density(temperature=ROOM_TEMPERATURE, pressure=STANDARD_PRESSURE):
+    """Gas density relative to 20 degC and 1 atm, delta = (p/p0)(T0/T) (ideal gas).
+
+    The one density factor of the breakdown and corona-onset relations here.
+
+    Parameters
+    ----------
+    temperature : float or array_like
+        Gas temperature, K (> 0).
+    pressure : float or array_like
+        Gas pressure, Pa (> 0).
+
+    Returns
+    -------
+    float or ndarray
+        delta, 1.
+    """
+    t = _array(temperature, "temperature")
+    p = _array(pressure, "pressure")
+    return _out((p / STANDARD_PRESSURE) * (ROOM_TEMPERATURE / t))
+
+
 def breakdown_field(temperature=ROOM_TEMPERATURE, pressure=STANDARD_PRESSURE):
     """Breakdown field of air, 3 MV/m at 20 degC and 1 atm scaled with gas density.
 
-    E_b = 3 MV/m x (p/p0)(T0/T): the breakdown field of a uniform gap scales
-    about with the relative gas density (common practice; Paschen's law behind
-    it). Sharp electrodes ionize at lower mean fields, and gaps far below a
-    centimetre hold higher fields: use it as the order of the limit.
+    E_b = 3 MV/m x delta, delta = (p/p0)(T0/T) (:func:`relative_air_density`):
+    the breakdown field of a uniform gap scales about with the relative gas
+    density (common practice; Paschen's law behind it). Sharp electrodes ionize
+    at lower mean fields, and gaps far below a centimetre hold higher fields:
+    use it as the order of the limit.
 
     Parameters
     ----------
@@ -160,9 +197,45 @@ def breakdown_field(temperature=ROOM_TEMPERATURE, pressure=STANDARD_PRESSURE):
     float or ndarray
         Field, V/m.
     """
-    t = _array(temperature, "temperature")
-    p = _array(pressure, "pressure")
-    return _out(AIR_BREAKDOWN_FIELD * (p / STANDARD_PRESSURE) * (ROOM_TEMPERATURE / t))
+    return _out(AIR_BREAKDOWN_FIELD * np.asarray(relative_air_density(temperature, pressure)))
+
+
+def corona_onset_field(wire_radius, temperature=ROOM_TEMPERATURE, pressure=STANDARD_PRESSURE, roughness=1.0):
+    """Corona onset field at the surface of a wire, by Peek's law.
+
+    E_c = m x 3.1 MV/m x delta x (1 + 0.0308 m^0.5/sqrt(delta r)) (F. W. Peek,
+    Dielectric Phenomena in High Voltage Engineering, 1929; constants from
+    memory), delta the relative air density of :func:`relative_air_density`.
+    Peek referred delta to 25 degC and 76 cmHg; here it is referred to 20 degC
+    and 1 atm like the breakdown field, which shifts E_c by under 2 %, well
+    inside the scatter of the law. A wire whose surface field (without space
+    charge) exceeds E_c goes into corona.
+
+    Parameters
+    ----------
+    wire_radius : float or array_like
+        Wire radius r, m (> 0).
+    temperature : float or array_like
+        Gas temperature, K (> 0).
+    pressure : float or array_like
+        Gas pressure, Pa (> 0).
+    roughness : float
+        Peek's surface factor m, 0 < m <= 1: 1 for a smooth, clean wire; about
+        0.8-0.9 for weathered or stranded wires, lower for dirty or
+        dust-coated ones (from memory). A rougher wire starts corona earlier.
+
+    Returns
+    -------
+    float or ndarray
+        Onset field, V/m (a 1.5 mm wire in air at 20 degC, 1 atm: about
+        5.6 MV/m).
+    """
+    r = _array(wire_radius, "wire_radius")
+    m = float(roughness)
+    if not (0.0 < m <= 1.0):
+        raise ValueError(f"roughness must be in (0, 1] (Peek's surface factor), got {roughness!r}")
+    delta = np.asarray(relative_air_density(temperature, pressure))
+    return _out(m * PEEK_FIELD * delta * (1.0 + PEEK_RADIUS_TERM / np.sqrt(delta * r)))
 
 
 @dataclass(frozen=True)
@@ -263,10 +336,14 @@ class Finding:
     Attributes
     ----------
     kind : str
-        "breakdown" (a field at or above the breakdown field),
+        Hazards: "breakdown" (a field at or above the breakdown field; for a
+        corona electrode the mean field across its gap: sparkover),
         "breakdown_margin" (within the margin below it), "ignition" (stored
         energy at or above the minimum ignition energy), "person_charged"
-        (a person at a potential).
+        (a person at a potential). Information on corona electrodes:
+        "corona_onset" (the wire's surface field reaches Peek's onset field:
+        corona starts, as intended) and "no_corona" (below onset: the
+        electrode does not charge particles).
     value : float
         The measured quantity, in ``units``.
     threshold : float
@@ -277,6 +354,9 @@ class Finding:
         One sentence for the user.
     name : str
         The electrode, gap or conductor concerned.
+    severity : str
+        "hazard" (a safety finding) or "info" (how the design works; not a
+        hazard by itself).
     """
 
     kind: str
@@ -285,10 +365,15 @@ class Finding:
     units: str
     message: str
     name: str = ""
+    severity: str = "hazard"
 
     def to_dict(self):
         """The finding as a plain dict (for JSON output)."""
         return asdict(self)
+
+
+#: Kinds of the informational findings (``severity == "info"``).
+INFO_KINDS = ("corona_onset", "no_corona")
 
 
 @dataclass(frozen=True)
@@ -366,17 +451,66 @@ def _as_conductor(item, index):
     raise ValueError(f"conductors[{index}] must be a Conductor or a dict, got {type(item).__name__}")
 
 
+def _optional(value, what):
+    if value is None:
+        return None
+    v = float(value)
+    if not math.isfinite(v) or v <= 0:
+        raise ValueError(f"{what} must be finite and > 0, got {value!r}")
+    return v
+
+
 def _as_field(item, index):
-    """(name, peak field V/m) from a pair, a dict, or an object with name and peak_field()."""
+    """(name, peak field, gap field or None, corona wire radius or None) of one field item.
+
+    Accepts a (name, V/m) pair, a dict with "name", "peak_field" and optionally
+    "gap_field" (V/m) and "corona_wire_radius" (m), or a field source: an object
+    with ``name``, ``peak_field()`` and optionally ``gap_field()`` and
+    ``corona_wire_radius`` (see :class:`chargesim.sources.FieldSource`).
+    """
     if hasattr(item, "peak_field"):
-        return str(getattr(item, "name", f"source {index}")), float(item.peak_field())
-    if isinstance(item, dict):
-        return str(item.get("name", f"field {index}")), float(item["peak_field"])
-    try:
-        name, value = item
-    except (TypeError, ValueError):
-        raise ValueError(f"fields[{index}] must be (name, peak field in V/m), a dict or a field source") from None
-    return str(name), float(value)
+        name = str(getattr(item, "name", f"source {index}"))
+        gap = item.gap_field() if callable(getattr(item, "gap_field", None)) else None
+        wire = getattr(item, "corona_wire_radius", None)
+        peak = float(item.peak_field())
+    elif isinstance(item, dict):
+        name = str(item.get("name", f"field {index}"))
+        try:
+            peak = float(item["peak_field"])
+        except KeyError:
+            raise ValueError(f"fields[{index}] ({name!r}): a dict needs 'peak_field' (V/m)") from None
+        gap, wire = item.get("gap_field"), item.get("corona_wire_radius")
+    else:
+        try:
+            name, value = item
+        except (TypeError, ValueError):
+            raise ValueError(f"fields[{index}] must be (name, peak field in V/m), a dict or a field source") from None
+        name, peak, gap, wire = str(name), float(value), None, None
+    if not math.isfinite(peak):
+        raise ValueError(f"fields[{index}] ({name!r}): peak field must be finite, got {peak!r}")
+    if gap is not None:
+        gap = float(gap)
+        if not math.isfinite(gap):
+            raise ValueError(f"fields[{index}] ({name!r}): gap field must be finite, got {gap!r}")
+        gap = abs(gap)
+    wire = _optional(wire, f"fields[{index}] ({name!r}): corona_wire_radius")
+    if wire is not None and gap is None:
+        raise ValueError(f"fields[{index}] ({name!r}): a corona electrode needs its gap field (mean field across "
+                         "the gap, V/m) for the sparkover check")
+    return name, abs(peak), gap, wire
+
+
+def _breakdown(name, e, eb, m, where, conditions, expect="corona or sparkover", note=""):
+    """A "breakdown" or "breakdown_margin" finding for a field e against eb (V/m), or None."""
+    if e >= eb:
+        return Finding("breakdown", e, eb, "V/m",
+                       f"{name}: {where} {e / 1e6:.3g} MV/m reaches the breakdown field of air "
+                       f"({eb / 1e6:.3g} MV/m at {conditions}): expect {expect}{note}", name)
+    if e >= m * eb:
+        return Finding("breakdown_margin", e, m * eb, "V/m",
+                       f"{name}: {where} {e / 1e6:.3g} MV/m is within the margin "
+                       f"({m:.0%} of {eb / 1e6:.3g} MV/m) of the breakdown field of air" + note, name)
+    return None
 
 
 def assess(
@@ -388,15 +522,25 @@ def assess(
     margin=DEFAULT_MARGIN,
     person_voltage_limit=PERSON_VOLTAGE_LIMIT,
     min_ignition_energy=None,
+    corona_roughness=1.0,
 ):
     """Safety findings of a design: fields against breakdown, conductors against ignition.
+
+    A field item with a corona wire radius is a corona electrode: its surface
+    field is compared with the corona onset field (:func:`corona_onset_field`;
+    a "corona_onset" or "no_corona" finding of severity "info", never a
+    hazard), and its mean gap field with the breakdown field (a "breakdown" or
+    "breakdown_margin" finding: sparkover). Any other item has its peak field
+    compared with the breakdown field.
 
     Parameters
     ----------
     fields : sequence
         Peak fields at electrode surfaces or across gaps: (name, V/m) pairs,
-        dicts with "name" and "peak_field", or applied field sources (objects
-        with ``name`` and ``peak_field()``).
+        dicts with "name" and "peak_field" (and, for a corona electrode,
+        "gap_field" in V/m and "corona_wire_radius" in m), or applied field
+        sources (objects with ``name``, ``peak_field()`` and optionally
+        ``gap_field()`` and ``corona_wire_radius``).
     conductors : sequence of Conductor or dict
         Isolated conductors (workpieces, parts, people) with their potentials
         or charges.
@@ -415,6 +559,9 @@ def assess(
     min_ignition_energy : float, optional
         A minimum ignition energy given directly, J (> 0), for an atmosphere
         not in the table; not together with ``atmosphere``.
+    corona_roughness : float
+        Peek's surface factor of the corona wires, 0 < m <= 1 (see
+        :func:`corona_onset_field`).
 
     Returns
     -------
@@ -432,21 +579,32 @@ def assess(
                          "given", "given by the user")
     else:
         mie = None if atmosphere is None else _lookup(atmosphere)
+    conditions = f"{float(temperature):.1f} K, {float(pressure) / 1e3:.1f} kPa"
     out = []
     for i, item in enumerate(fields):
-        name, e = _as_field(item, i)
-        e = abs(e)
-        if not math.isfinite(e):
-            raise ValueError(f"fields[{i}] ({name!r}): peak field must be finite, got {e!r}")
-        if e >= eb:
-            out.append(Finding("breakdown", e, eb, "V/m",
-                               f"{name}: peak field {e / 1e6:.3g} MV/m reaches the breakdown field of air "
-                               f"({eb / 1e6:.3g} MV/m at {temperature:.1f} K, {pressure / 1e3:.1f} kPa): "
-                               "expect corona or sparkover", name))
-        elif e >= m * eb:
-            out.append(Finding("breakdown_margin", e, m * eb, "V/m",
-                               f"{name}: peak field {e / 1e6:.3g} MV/m is within the margin "
-                               f"({m:.0%} of {eb / 1e6:.3g} MV/m) of the breakdown field of air", name))
+        name, e, gap, wire = _as_field(item, i)
+        if wire is None:
+            found = _breakdown(name, e, eb, m, "peak field", conditions)
+            if found is not None:
+                out.append(found)
+            continue
+        onset = float(corona_onset_field(wire, temperature, pressure, corona_roughness))
+        peek = f"Peek's law for a {wire * 1e3:.3g} mm wire at {conditions}"
+        if e >= onset:
+            out.append(Finding("corona_onset", e, onset, "V/m",
+                               f"{name}: surface field {e / 1e6:.3g} MV/m is above the corona onset field "
+                               f"{onset / 1e6:.3g} MV/m ({peek}): corona starts and its ions charge the "
+                               "particles (intended for a discharge electrode)", name, "info"))
+        else:
+            out.append(Finding("no_corona", e, onset, "V/m",
+                               f"{name}: no corona: surface field {e / 1e6:.3g} MV/m is below the corona onset "
+                               f"field {onset / 1e6:.3g} MV/m ({peek}): particles will not be charged by this "
+                               "electrode (raise the voltage or use a thinner wire)", name, "info"))
+        found = _breakdown(name, gap, eb, m, "mean field across the gap (voltage over wire-to-ground distance)",
+                           conditions, "sparkover across the gap", "; a corona gap can spark over at lower mean fields (space charge, "
+                           "streamers): treat this as an upper limit")
+        if found is not None:
+            out.append(found)
     for i, item in enumerate(conductors):
         c = _as_conductor(item, i)
         cap = c.resolved_capacitance()

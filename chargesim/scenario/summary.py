@@ -40,20 +40,10 @@ def hazard_findings(scenario, built=None):
         conductors.append(hazards.Conductor(p["name"], capacitance=p["capacitance"], voltage=p["voltage"],
                                             person=True))
     gas = m["gas"] != "vacuum"
-    out = hazards.assess(fields=fields if gas else (), conductors=conductors, atmosphere=h["atmosphere"],
-                         temperature=m["temperature"], pressure=m["pressure"], margin=h["breakdown_margin"])
-    mie = h["minimum_ignition_energy"]
-    if mie is not None:
-        for c in conductors:
-            cap, v = c.resolved_capacitance(), c.resolved_voltage()
-            u = float(hazards.stored_energy(cap, v))
-            if u >= mie:
-                out.append(hazards.Finding(
-                    "ignition", u, mie, "J",
-                    f"{c.name}: stores {u * 1e3:.3g} mJ at {v / 1e3:.3g} kV, at or above the given minimum "
-                    f"ignition energy ({mie * 1e3:.3g} mJ): a spark from it can ignite the atmosphere; ground it",
-                    c.name))
-    return out
+    # the load-time checks refuse atmosphere and minimum_ignition_energy together
+    return hazards.assess(fields=fields if gas else (), conductors=conductors, atmosphere=h["atmosphere"],
+                          temperature=m["temperature"], pressure=m["pressure"], margin=h["breakdown_margin"],
+                          min_ignition_energy=h["minimum_ignition_energy"])
 
 
 def fixed_surface_field(built):
@@ -104,7 +94,8 @@ def plan(scenario):
     fed, size), ``particles`` (total, moving, fixed), ``time`` (step, end,
     steps, integrator), ``coulomb`` (method asked and chosen), ``outputs``,
     ``estimate`` (memory bytes, run seconds; rough), ``hazards`` (findings:
-    kind, value, threshold, units, message, name), ``cautions``.
+    kind, value, threshold, units, message, name, severity; severity "info"
+    marks the corona-onset information, not a hazard), ``cautions``.
     """
     d = scenario.data
     pops = _population_plan(d)
@@ -189,9 +180,16 @@ def render_text(p):
     lines.append(f"Estimate ({e['note']}): memory {_bytes(e['memory_bytes'])}, output {_bytes(e['output_bytes'])}, "
                  f"run time {_duration(e['run_seconds'])}")
     lines.append("")
-    if p["hazards"]:
-        lines.append(f"Safety findings ({len(p['hazards'])}):")
-        for f in p["hazards"]:
+    info = [f for f in p["hazards"] if f.get("severity") == "info"]
+    found = [f for f in p["hazards"] if f.get("severity") != "info"]
+    if info:
+        lines.append("Corona electrodes:")
+        for f in info:
+            lines.append(f"  [{f['kind']}] {f['message']}")
+        lines.append("")
+    if found:
+        lines.append(f"Safety findings ({len(found)}):")
+        for f in found:
             lines.append(f"  [{f['kind']}] {f['message']}")
     else:
         lines.append("Safety findings: none for the fields, conductors and people described in the scenario.")

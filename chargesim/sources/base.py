@@ -52,13 +52,23 @@ class FieldSource:
     :meth:`peak_field` and ``_geometry``; the public methods check the points
     once and hand over a C-contiguous float64 (M, 3) array.
 
+    For the safety checks a corona discharge electrode (a thin wire) also sets
+    ``corona_wire_radius`` and gives :meth:`gap_field`: then
+    :func:`chargesim.hazards.assess` compares its surface field with the
+    corona onset field and its gap field with the breakdown field (sparkover),
+    instead of its surface field with the breakdown field.
+
     Attributes
     ----------
     name : str
         Name of the source (used in findings, plots and files).
+    corona_wire_radius : float or None
+        Radius of the corona wire(s), m; None for electrodes not meant to run
+        in corona (plates, uniform fields).
     """
 
     name = "source"
+    corona_wire_radius = None
 
     def field(self, points):
         """Electric field at ``points``.
@@ -97,6 +107,13 @@ class FieldSource:
         source itself).
         """
         raise NotImplementedError
+
+    def gap_field(self):
+        """Mean field across the electrode gap (voltage over gap), V/m, or None without a gap of its own.
+
+        For the sparkover check of corona electrodes.
+        """
+        return None
 
     def describe(self):
         """Parameters and electrode outlines, for files and plots.

@@ -86,6 +86,15 @@ class WireInTube(FieldSource):
         """Field at the wire surface, V/(a ln(b/a)), V/m."""
         return abs(self.voltage) / (self.wire_radius * self._log)
 
+    @property
+    def corona_wire_radius(self):
+        """The wire is a corona discharge electrode: its radius, m."""
+        return self.wire_radius
+
+    def gap_field(self):
+        """Voltage over the wire-to-tube distance, |V|/b, V/m (the mean field of the gap)."""
+        return abs(self.voltage) / self.tube_radius
+
     def line_charge(self, eps_r=1.0):
         """Free charge per length on the wire, 2 pi eps0 eps_r V/ln(b/a), C/m."""
         return _TWO_PI_EPS0 * float(eps_r) * self.voltage / self._log
@@ -270,6 +279,15 @@ class WirePlateChannel(FieldSource):
     def mean_field(self):
         """Voltage over wire-to-plate distance, V/m (the usual design figure)."""
         return abs(self.voltage) / self.plate_distance
+
+    @property
+    def corona_wire_radius(self):
+        """The wires are corona discharge electrodes: their radius, m."""
+        return self.wire_radius
+
+    def gap_field(self):
+        """Mean field of the wire-to-plate gap, |V|/s, V/m (the same as :attr:`mean_field`)."""
+        return self.mean_field
 
     def _eval(self, pts, need_pot=True):
         x = np.ascontiguousarray(pts[:, 0] - self.origin[0])

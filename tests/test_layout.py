@@ -353,3 +353,18 @@ def test_unconfined_like_charges_run_away_and_are_not_converged():
     with pytest.warns(RuntimeWarning, match="ran away"):
         res = chargesim.relax(pos, 1e-9)
     assert not res.converged and res.escaped.size >= 1 and res.stability is None
+
+
+def test_reported_modes_are_eigenvectors():
+    # linear algebra: each returned mode v of eigenvalue lam satisfies H v = lam v;
+    # checked with the Hessian from central differences of the front door's forces
+    rng = np.random.default_rng(12)
+    x = rng.normal(size=(9, 3))
+    q = rng.uniform(0.5, 1.5, 9) * 1e-9
+    st = layout.stability(x, q, fixed=[0, 1, 2], n_modes=3)
+    h = 1e-6
+    for lam, mode in zip(st.eigenvalues[:3], st.modes):
+        assert np.linalg.norm(mode) == pytest.approx(1.0, rel=1e-12)
+        assert np.all(mode[:3] == 0)  # fixed particles do not take part
+        hv = -(chargesim.forces(x + h * mode, q, method="direct") - chargesim.forces(x - h * mode, q, method="direct")) / (2 * h)
+        np.testing.assert_allclose(hv[3:], lam * mode[3:], atol=1e-5 * np.abs(st.eigenvalues).max())

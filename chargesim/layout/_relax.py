@@ -173,7 +173,7 @@ def _lbfgs(system, xf, length, fscale, tol, maxiter, memory=20):
     for it in range(1, maxiter + 1):
         gmax = float(np.sqrt(np.max(np.sum(g.reshape(nf, dim) ** 2, axis=1))))
         if gmax <= 0.5 * tol:
-            message = "L-BFGS reached the tolerance"
+            message = f"L-BFGS reached residual {tol:g}"
             break
         # two-loop recursion
         d = -g.copy()
@@ -254,7 +254,7 @@ def _fire(system, xf, length, fscale, tol, maxiter):
         ft = system.tangential(x_all, f, frames) / fscale
         fnorm = np.sqrt(np.sum(ft**2, axis=1))
         if fnorm.max() <= tol:
-            return x, it, "FIRE reached the tolerance"
+            return x, it, f"FIRE reached residual {tol:g}"
         if it % 5 == 1 and system.escaped(x).size:
             return x, it, "particles ran away: no equilibrium holds them"
         p = float(np.sum(ft * v))
@@ -343,6 +343,8 @@ def run_start(system, x_start_free, *, tol, minimizer, maxiter):
         iterations += it
         xf, ns = _newton(system, xf, tol)
         iterations += ns
+        if ns:
+            message += f"; then {ns} Newton step(s)"
         x_all = system.full(xf)
         length, fscale, _ = system.scales(x_all)
         f = system.forces_only(x_all)

@@ -543,7 +543,7 @@ def cell_coords(c, shape):
 
 
 @numba.njit(inline="always")
-def _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, offsets, jj):
+def _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, offsets, ii, jj):
     """Count (jj empty) or store the neighbours j > i of the points of a chunk of cells."""
     ncell = start.size - 1
     rc2 = rc * rc
@@ -557,6 +557,7 @@ def _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, of
     by = np.empty(cap)
     bz = np.empty(cap)
     bs = np.empty(cap, np.int64)
+    tmp = np.empty(cap, np.int64)
     for c in range(chunk * CELL_CHUNK, min(ncell, (chunk + 1) * CELL_CHUNK)):
         if start[c + 1] == start[c]:
             continue
@@ -570,39 +571,62 @@ def _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, of
             bz = np.empty(cap)
             bs = np.empty(cap, np.int64)
         k = gather(nseg, lo, hi, sh, points, bx, by, bz, bs)
+        if tmp.size < k:
+            tmp = np.empty(cap, np.int64)
         for u in range(k):
             bs[u] = order[bs[u]]  # input indices from here on
         for t in range(start[c], start[c + 1]):
             i = order[t]
             x, y, z = points[0, t], points[1, t], points[2, t]
-            b = offsets[i] if store else 0
+            if not store:
+                # counting only: an integer tally of a select keeps the loop
+                # vectorised (and exact, so both passes decide alike)
+                tally = 0
+                for u in range(k):
+                    dx = x - bx[u]
+                    dy = y - by[u]
+                    dz = z - bz[u]
+                    r2 = dx * dx + dy * dy + dz * dz
+                    tally += 1 if ((bs[u] > i) & (r2 < rc2)) else 0
+                offsets[i + 1] = tally
+                continue
             cnt = 0
             for u in range(k):
                 j = bs[u]
                 dx = x - bx[u]
                 dy = y - by[u]
                 dz = z - bz[u]
-                if j > i and dx * dx + dy * dy + dz * dz < rc2:
-                    if store:
-                        jj[b + cnt] = j
-                    cnt += 1
+                r2 = dx * dx + dy * dy + dz * dz
+                # branch-free: always write, advance only on a pair
+                tmp[cnt] = j
+                cnt += 1 if ((j > i) & (r2 < rc2)) else 0
             if store:
-                # neighbours arrive in cell order: sort each row for a stable output
-                jj[b:b + cnt] = np.sort(jj[b:b + cnt])
-            else:
-                offsets[i + 1] = cnt
+                # neighbours arrive in cell order: sort the row (short: insertion)
+                for a in range(1, cnt):
+                    v = tmp[a]
+                    e = a - 1
+                    while e >= 0 and tmp[e] > v:
+                        tmp[e + 1] = tmp[e]
+                        e -= 1
+                    tmp[e + 1] = v
+                b = offsets[i]
+                # the count pass made the same decisions; never write past the row
+                cnt = min(cnt, offsets[i + 1] - b)
+                for a in range(cnt):
+                    ii[b + a] = i
+                    jj[b + a] = tmp[a]
 
 
 @numba.njit(parallel=True, cache=True)
-def _pair_rows_parallel(points, order, start, shape, box, periodic, reach, rc, offsets, jj):
+def _pair_rows_parallel(points, order, start, shape, box, periodic, reach, rc, offsets, ii, jj):
     for chunk in numba.prange((start.size - 1 + CELL_CHUNK - 1) // CELL_CHUNK):
-        _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, offsets, jj)
+        _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, offsets, ii, jj)
 
 
 @numba.njit(cache=True)
-def _pair_rows_serial(points, order, start, shape, box, periodic, reach, rc, offsets, jj):
+def _pair_rows_serial(points, order, start, shape, box, periodic, reach, rc, offsets, ii, jj):
     for chunk in range((start.size - 1 + CELL_CHUNK - 1) // CELL_CHUNK):
-        _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, offsets, jj)
+        _pair_chunk(chunk, points, order, start, shape, box, periodic, reach, rc, offsets, ii, jj)
 
 
 def pairs(positions, cutoff, box=None):
@@ -633,12 +657,12 @@ def pairs(positions, cutoff, box=None):
     args = (cells.points, cells.order, cells.start, cells.shape, cells.box, cells.periodic,
             cells.reach, cells.cutoff)
     offsets = np.zeros(n + 1, np.int64)
+    none = np.empty(0, np.int64)
     if n:  # counts into offsets[1:]
-        run(_pair_rows_parallel, _pair_rows_serial, n, *args, offsets, np.empty(0, np.int64))
-    counts = offsets[1:].copy()
-    np.cumsum(counts, out=offsets[1:])
+        run(_pair_rows_parallel, _pair_rows_serial, n, *args, offsets, none, none)
+    np.cumsum(offsets[1:], out=offsets[1:])
+    ii = np.empty(int(offsets[-1]), np.int64)
     jj = np.empty(int(offsets[-1]), np.int64)
     if jj.size:
-        run(_pair_rows_parallel, _pair_rows_serial, n, *args, offsets, jj)
-    ii = np.repeat(np.arange(n, dtype=np.int64), counts)
+        run(_pair_rows_parallel, _pair_rows_serial, n, *args, offsets, ii, jj)
     return ii, jj

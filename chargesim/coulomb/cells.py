@@ -106,7 +106,7 @@ import numpy as np
 #: Cells per cutoff along each axis (the stencil reaches this many cells each
 #: side). One cell per cutoff: the 27-cell stencil holds 27 rc^3 of candidates
 #: (125 cells of (rc/2)^3 hold 15.6 rc^3), but the runs of sources are long, so
-#: the cutoff kernel's inner loop vectorises; measured about 1.8x faster at 60
+#: the cutoff kernel's inner loop vectorises; measured about 1.5x faster at 60
 #: neighbours per point (benchmarks/bench_cutoff.py setting).
 REACH = 1
 

@@ -171,7 +171,7 @@ def crossover(repeats):
     """Median times of both methods at the default accuracy over small N."""
     acc = ewald.OPTIONS["accuracy"]
     rows = []
-    for n in (250, 500, 1000, 2000, 4000, 8000):
+    for n in (8, 27, 64, 125, 250, 500, 1000, 2000, 4000):
         x, q, box = system(n, seed=n)
         te = median_times(lambda: forces("ewald", x, q, box, acc), repeats, warmup=1)[0]
         tm = median_times(lambda: forces("mesh", x, q, box, acc), repeats, warmup=1)[0]

@@ -51,9 +51,14 @@ from . import _ewald_common as common
 
 OPTIONS = dict(common.COMMON_OPTIONS)
 
-#: N above which the mesh method beats Ewald at the default accuracy: set from
-#: benchmarks/bench_periodic.py on the 2-core reference machine (see below).
-MESH_CROSSOVER = 2000
+#: N above which the mesh method beats Ewald at the default accuracy (1e-5),
+#: measured with ``benchmarks/bench_periodic.py --crossover`` on the shared
+#: 2-core reference machine (load average ~7), forces, medians of 7:
+#: N = 8: Ewald 0.6 ms, mesh 0.7 ms; 27: 0.8/0.7; 64: 1.6/1.4; 125: 6.5/4.1;
+#: 250: 12.1/7.6; 500: 37/11.5; 1000: 86/23; 4000: 592/184. Below ~100 the
+#: two are within the noise of each other, so Ewald (exact k-space sum) keeps
+#: the small systems.
+MESH_CROSSOVER = 100
 
 # Targets per chunk of the parallel k-space loop.
 _CHUNK = 64

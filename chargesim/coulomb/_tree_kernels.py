@@ -76,6 +76,16 @@ def _grow(a, cap):
 
 
 @numba.njit(cache=True)
+def _grow_rows(a, cap, used):
+    # explicit loops: slice copies inside a prange body are not reliable
+    b = np.empty((a.shape[0], cap), dtype=a.dtype)
+    for r in range(a.shape[0]):
+        for c in range(used):
+            b[r, c] = a[r, c]
+    return b
+
+
+@numba.njit(cache=True)
 def build_topology(codes, leaf_size):
     """Octree over sorted Morton codes.
 
@@ -250,7 +260,7 @@ def node_data(start, end, x, y, z, q, rad, use_radii, out):
 
 @numba.njit(parallel=True, cache=True)
 def group_geometry(gstart, gend, x, y, z, rad, use_radii, out):
-    """Per target group: bounding-box centre (0-2), radius about it (3), max radius (4)."""
+    """Per target group: bounding box lower (0-2) and upper (3-5) corner, max radius (6)."""
     for g in numba.prange(gstart.size):
         s = gstart[g]
         e = gend[g]
@@ -260,30 +270,23 @@ def group_geometry(gstart, gend, x, y, z, rad, use_radii, out):
         y1 = y[s]
         z0 = z[s]
         z1 = z[s]
-        for j in range(s + 1, e):
+        rmax = 0.0
+        for j in range(s, e):
             x0 = min(x0, x[j])
             x1 = max(x1, x[j])
             y0 = min(y0, y[j])
             y1 = max(y1, y[j])
             z0 = min(z0, z[j])
             z1 = max(z1, z[j])
-        cx = 0.5 * (x0 + x1)
-        cy = 0.5 * (y0 + y1)
-        cz = 0.5 * (z0 + z1)
-        b2 = 0.0
-        rmax = 0.0
-        for j in range(s, e):
-            dx = x[j] - cx
-            dy = y[j] - cy
-            dz = z[j] - cz
-            b2 = max(b2, dx * dx + dy * dy + dz * dz)
             if use_radii:
                 rmax = max(rmax, rad[j])
-        out[g, 0] = cx
-        out[g, 1] = cy
-        out[g, 2] = cz
-        out[g, 3] = np.sqrt(b2)
-        out[g, 4] = rmax
+        out[g, 0] = x0
+        out[g, 1] = y0
+        out[g, 2] = z0
+        out[g, 3] = x1
+        out[g, 4] = y1
+        out[g, 5] = z1
+        out[g, 6] = rmax
 
 
 @numba.njit(inline="always", fastmath=_FM, error_model="numpy")
@@ -445,16 +448,18 @@ def _far_octupole(xi, yi, zi, fb, nf):
 def _lists(nd, first, nchild, gc, g, theta, direct_max, octupole, fb, near, stack):
     """Interaction lists of target group ``g``: far nodes into ``fb``, near ranges.
 
-    A node is taken as a multipole when every target of the group is at least
+    A node is taken as a multipole when every point of the group's bounding box is at least
     b / theta from its centre and no target sphere can overlap a source sphere
     in it; a leaf that fails is summed exactly. Returns (n_far, n_near, fb,
     near) (the buffers grow when full).
     """
-    gx = gc[g, 0]
-    gy = gc[g, 1]
-    gz = gc[g, 2]
-    gr = gc[g, 3]
-    grad = gc[g, 4]
+    x0 = gc[g, 0]
+    y0 = gc[g, 1]
+    z0 = gc[g, 2]
+    x1 = gc[g, 3]
+    y1 = gc[g, 4]
+    z1 = gc[g, 5]
+    grad = gc[g, 6]
     nf = 0
     nl = 0
     sp = 1
@@ -462,17 +467,20 @@ def _lists(nd, first, nchild, gc, g, theta, direct_max, octupole, fb, near, stac
     while sp > 0:
         sp -= 1
         k = stack[sp]
-        dx = nd[k, 0] - gx
-        dy = nd[k, 1] - gy
-        dz = nd[k, 2] - gz
-        dmin = np.sqrt(dx * dx + dy * dy + dz * dz) - gr
+        # distance from the node's centre to the nearest point of the
+        # group's bounding box: the closest any of its targets can be
+        cx = nd[k, 0]
+        cy = nd[k, 1]
+        cz = nd[k, 2]
+        dx = max(0.0, x0 - cx, cx - x1)
+        dy = max(0.0, y0 - cy, cy - y1)
+        dz = max(0.0, z0 - cz, cz - z1)
+        dmin = np.sqrt(dx * dx + dy * dy + dz * dz)
         b = nd[k, 3]
         far = dmin * theta > b and dmin - b > max(nd[k, 14], grad)
         if far and nd[k, 15] > direct_max:
             if nf == fb.shape[1]:
-                nb = np.empty((_FAR_ROWS, 2 * nf), np.float64)
-                nb[:, :nf] = fb
-                fb = nb
+                fb = _grow_rows(fb, 2 * nf, nf)
             for c in range(3):
                 fb[c, nf] = nd[k, c]
             for c in range(10):
@@ -510,9 +518,35 @@ def evaluate_groups(nstart, nend, first, nchild, nd, sx, sy, sz, sq, sr, use_rad
         g1 = ((blk + 1) * ng) // n_blocks
         fb = np.empty((_FAR_ROWS, 512), np.float64)
         near = np.empty(256, np.int64)
+        nb = np.empty((5, 4096), np.float64)
         stack = np.empty(8 * 64, np.int64)
         for g in range(g0, g1):
             nf, nl, fb, near = _lists(nd, first, nchild, gc, g, theta, direct_max, octupole, fb, near, stack)
+            # gather the near particles into one contiguous run: one long
+            # vectorised loop per target instead of many short ones
+            tot = 0
+            self_off = 0
+            for m in range(nl):
+                k = near[m]
+                a = nstart[k]
+                b = nend[k]
+                if self_targets and a == gstart[g]:
+                    self_off = tot  # the group's own leaf
+                if tot + (b - a) > nb.shape[1]:
+                    nb = _grow_rows(nb, max(2 * nb.shape[1], tot + (b - a)), tot)
+                for j in range(a, b):
+                    nb[0, tot] = sx[j]
+                    nb[1, tot] = sy[j]
+                    nb[2, tot] = sz[j]
+                    nb[3, tot] = sq[j]
+                    if use_radii:
+                        nb[4, tot] = sr[j]
+                    tot += 1
+            bx = nb[0]
+            by = nb[1]
+            bz = nb[2]
+            bq = nb[3]
+            br = nb[4]
             for i in range(gstart[g], gend[g]):
                 xi = tx[i]
                 yi = ty[i]
@@ -524,36 +558,27 @@ def evaluate_groups(nstart, nend, first, nchild, nd, sx, sy, sz, sq, sr, use_rad
                     ay += fy
                     az += fz
                     p += pp
-                c = 0
                 if use_radii:
                     ri = tr[i]
-                    for m in range(nl):
-                        k = near[m]
-                        a = nstart[k]
-                        b = nend[k]
-                        if self_targets and a <= i < b:
-                            fx, fy, fz, pp, cc = _near_spheres(xi, yi, zi, ri, sx, sy, sz, sq, sr, a, i)
-                            ax += fx
-                            ay += fy
-                            az += fz
-                            p += pp
-                            c += cc
-                            a = i + 1
-                        fx, fy, fz, pp, cc = _near_spheres(xi, yi, zi, ri, sx, sy, sz, sq, sr, a, b)
+                    if self_targets:
+                        # skip the self pair by index (coincident distinct
+                        # spheres are legitimate and must still be summed)
+                        me = self_off + (i - gstart[g])
+                        fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, me)
                         ax += fx
                         ay += fy
                         az += fz
                         p += pp
+                        fx, fy, fz, pp, cc = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, me + 1, tot)
                         c += cc
+                    else:
+                        fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, tot)
                 else:
-                    for m in range(nl):
-                        k = near[m]
-                        fx, fy, fz, pp, cc = _near_points(xi, yi, zi, sx, sy, sz, sq, nstart[k], nend[k])
-                        ax += fx
-                        ay += fy
-                        az += fz
-                        p += pp
-                        c += cc
+                    fx, fy, fz, pp, c = _near_points(xi, yi, zi, bx, by, bz, bq, 0, tot)
+                ax += fx
+                ay += fy
+                az += fz
+                p += pp
                 ex[i] = ax
                 ey[i] = ay
                 ez[i] = az

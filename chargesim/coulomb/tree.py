@@ -14,7 +14,8 @@ group then sums in a vectorised loop, in the same fixed order whatever the
 thread count.
 
 Opening criterion. A node is used as a multipole for a group when every
-target of the group is at distance d >= b / theta from the node's centre
+point of the group's bounding box (so every target of the group) is at
+distance d >= b / theta from the node's centre
 (and no target sphere can overlap a source sphere of the node). For one
 source at distance <= b from the centre the remainder of the Legendre series
 after order p = 3 is bounded by (b/d)^(p+1) / (d - b); summed over the node
@@ -161,7 +162,9 @@ class Tree:
         leaves = np.flatnonzero(self._nchild == 0)
         self._leaf_start = self._start[leaves]
         self._leaf_end = self._end[leaves]
-        self._leaf_geom = np.ascontiguousarray(self._nd[leaves][:, [0, 1, 2, 3, 14]])
+        self._leaf_geom = np.empty((leaves.size, 7))
+        _k.group_geometry(self._leaf_start, self._leaf_end, self._x, self._y, self._z, self._r,
+                          rad is not None, self._leaf_geom)
 
     @property
     def n_nodes(self):
@@ -218,7 +221,7 @@ class Tree:
             leaves = nch == 0
             gstart = np.ascontiguousarray(s[leaves])
             gend = np.ascontiguousarray(e[leaves])
-            gc = np.empty((gstart.size, 5))
+            gc = np.empty((gstart.size, 7))
             _k.group_geometry(gstart, gend, tx, ty, tz, tr, False, gc)
         m = tx.size
         ex = np.empty(m)

@@ -5,8 +5,10 @@ function, :func:`._ewald_common.real_space`); the reciprocal part is done on a
 regular mesh instead of over explicit k-vectors:
 
 1. charges are spread onto a K1 x K2 x K3 mesh with cardinal B-splines of
-   (even) order p (numba, one private mesh per fixed chunk of particles,
-   summed in a fixed order, so results do not depend on scheduling);
+   (even) order p (numba; particles sorted by mesh cell, x-slabs of even
+   then odd parity in parallel, so there are no write races and the order of
+   additions, hence every bit of the result, does not depend on the thread
+   count);
 2. the mesh is transformed (``scipy.fft.rfftn``, two workers), multiplied by
    the Ewald influence function 4 pi / V exp(-k^2/(4 alpha^2)) / k^2 and by
    the B-spline moduli |b(m)|^2 that undo the smoothing of the spreading, and
@@ -15,7 +17,10 @@ regular mesh instead of over explicit k-vectors:
    B-splines and their derivatives (analytic differentiation: one inverse
    FFT).
 
-Cost O(N p^3 + K log K) with K ~ N mesh points: O(N log N).
+Cost O(N p^3 + K log K) with K ~ N mesh points: O(N log N). The order p
+and the mesh are chosen from ``accuracy`` by the measured aliasing error and
+a measured cost model (:func:`choose`); the real-space cutoff holds about 40
+neighbours per particle.
 
 Reference: U. Essmann, L. Perera, M. L. Berkowitz, T. Darden, H. Lee and
 L. G. Pedersen, J. Chem. Phys. 103, 8577 (1995).

@@ -223,7 +223,7 @@ def setup(sources, charges, targets, radii, options, *, neighbours_per_particle)
         warnings.warn(
             f"alpha={alpha:g} 1/m with the largest real-space cutoff the box allows ({rc:g} m) gives "
             f"alpha*r_c = {alpha * rc:.3g} < {s:.3g} needed for accuracy={acc:g}; results are less accurate",
-            RuntimeWarning, stacklevel=4)
+            RuntimeWarning, stacklevel=5)
     if radii is not None and radii.size and float(radii.max()) >= half:
         raise ValueError(f"radii must be below half the shortest box edge ({half:g} m); "
                          f"index {int(np.argmax(radii))} is {float(radii.max())!r}")
@@ -234,7 +234,7 @@ def setup(sources, charges, targets, radii, options, *, neighbours_per_particle)
         warnings.warn(
             f"periodic system carries a net charge {net:g} C: a uniform neutralizing background is added "
             "(the energy then includes -pi Q^2/(2 V alpha^2) and depends on that convention)",
-            RuntimeWarning, stacklevel=4)
+            RuntimeWarning, stacklevel=5)
     return Setup(box=box, volume=volume, accuracy=acc, s=s, alpha=float(alpha), real_cutoff=float(rc),
                  slab=slab, boundary=boundary, net_charge=net)
 

@@ -367,15 +367,21 @@ def _metrics_of(results, scenario, metrics, edges):
             for k, v in enumerate(eff):
                 row[f"grade_efficiency[{k}]"] = float(v)
         elif m in ("peak_field", "hazards"):
-            from .scenario import plan
+            from .scenario import build
+            from .scenario.summary import fixed_surface_field, hazard_findings
 
-            p = plan(scenario)
+            built = build(scenario, fields_only=True)
             if m == "peak_field":
-                row[m] = float(p.get("peak_field", math.nan))
+                peaks = [float(s.peak_field()) for s in built.sources if hasattr(s, "peak_field")]
+                surface = fixed_surface_field(built)
+                if surface is not None:
+                    peaks.append(float(surface))
+                row[m] = max(peaks) if peaks else math.nan
             else:
-                found = p.get("hazards", [])
-                row["hazards"] = len(found)
-                row["hazard_kinds"] = ";".join(sorted({f["kind"] if isinstance(f, dict) else str(f) for f in found}))
+                found = hazard_findings(scenario, built)
+                # information findings (corona onset) are not hazards
+                row["hazards"] = sum(1 for f in found if f.severity != "info")
+                row["hazard_kinds"] = ";".join(sorted({f.kind for f in found}))
     return row
 
 

@@ -13,11 +13,11 @@ The vocabulary is in :mod:`chargesim.scenario.vocabulary` and documented in
 """
 import importlib as _importlib
 
+from .build import build  # eager: the submodule of the same name would shadow a lazy name
 from .errors import ScenarioError
 from .load import Scenario, load_scenario, loads_scenario
 
 _LAZY = {
-    "build": "build",
     "run": "runner",
     "run_fields": "runner",
     "plan": "plan",
@@ -32,4 +32,4 @@ def __getattr__(name):
     return getattr(_importlib.import_module(f"{__name__}.{mod}"), name)
 
 
-__all__ = ["Scenario", "ScenarioError", "load_scenario", "loads_scenario", *_LAZY]
+__all__ = ["Scenario", "ScenarioError", "build", "load_scenario", "loads_scenario", *_LAZY]

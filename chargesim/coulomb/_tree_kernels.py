@@ -258,6 +258,30 @@ def node_data(start, end, x, y, z, q, rad, use_radii, out):
             out[k, 16 + c] = o[c]
 
 
+@numba.njit(cache=True)
+def groups(start, end, first, nchild, group_size):
+    """Target groups: the largest nodes holding at most ``group_size`` points
+    (or leaves), in Morton order. Returns (gstart, gend)."""
+    gs = np.empty(start.size, np.int64)
+    ge = np.empty(start.size, np.int64)
+    ng = 0
+    stack = np.empty(8 * (MORTON_BITS + 2), np.int64)
+    stack[0] = 0
+    sp = 1
+    while sp > 0:
+        sp -= 1
+        k = stack[sp]
+        if end[k] - start[k] <= group_size or nchild[k] == 0:
+            gs[ng] = start[k]
+            ge[ng] = end[k]
+            ng += 1
+        else:
+            for c in range(nchild[k] - 1, -1, -1):
+                stack[sp] = first[k] + c
+                sp += 1
+    return gs[:ng].copy(), ge[:ng].copy()
+
+
 @numba.njit(parallel=True, cache=True)
 def group_geometry(gstart, gend, x, y, z, rad, use_radii, out):
     """Per target group: bounding box lower (0-2) and upper (3-5) corner, max radius (6)."""
@@ -519,19 +543,20 @@ def evaluate_groups(nstart, nend, first, nchild, nd, sx, sy, sz, sq, sr, use_rad
         fb = np.empty((_FAR_ROWS, 512), np.float64)
         near = np.empty(256, np.int64)
         nb = np.empty((5, 4096), np.float64)
+        noff = np.empty(256, np.int64)
         stack = np.empty(8 * 64, np.int64)
         for g in range(g0, g1):
             nf, nl, fb, near = _lists(nd, first, nchild, gc, g, theta, direct_max, octupole, fb, near, stack)
+            if noff.size < near.size:
+                noff = np.empty(near.size, np.int64)
             # gather the near particles into one contiguous run: one long
             # vectorised loop per target instead of many short ones
             tot = 0
-            self_off = 0
             for m in range(nl):
                 k = near[m]
                 a = nstart[k]
                 b = nend[k]
-                if self_targets and a == gstart[g]:
-                    self_off = tot  # the group's own leaf
+                noff[m] = tot
                 if tot + (b - a) > nb.shape[1]:
                     nb = _grow_rows(nb, max(2 * nb.shape[1], tot + (b - a)), tot)
                 for j in range(a, b):
@@ -563,7 +588,11 @@ def evaluate_groups(nstart, nend, first, nchild, nd, sx, sy, sz, sq, sr, use_rad
                     if self_targets:
                         # skip the self pair by index (coincident distinct
                         # spheres are legitimate and must still be summed)
-                        me = self_off + (i - gstart[g])
+                        me = 0
+                        for m in range(nl):  # i's own leaf is in the near list
+                            k = near[m]
+                            if nstart[k] <= i < nend[k]:
+                                me = noff[m] + (i - nstart[k])
                         fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, me)
                         ax += fx
                         ay += fy

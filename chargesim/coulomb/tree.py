@@ -8,8 +8,9 @@ charge-weighted centre can lie anywhere when mixed-sign charges cancel) and
 its extent b (largest distance of one of its particles from that centre).
 
 Targets are sorted by Morton code too and evaluated in groups of neighbouring
-targets (the tree's own leaves when the targets are the sources): one walk of
-the tree per group gives its interaction lists, which every target of the
+targets (the largest nodes of the targets' own octree holding at most
+``GROUP_SIZE`` of them): one walk of the source tree per group gives its
+interaction lists (its near particles gathered into one contiguous run), which every target of the
 group then sums in a vectorised loop, in the same fixed order whatever the
 thread count.
 
@@ -56,6 +57,9 @@ CROSSOVER = 5000
 
 #: Most particles in a leaf of the source tree (and in a target group).
 LEAF_SIZE = 64
+#: Most targets in a group that shares one walk of the tree (the largest
+#: Morton-contiguous tree nodes below this size).
+GROUP_SIZE = 128
 #: Nodes with at most this many particles are summed exactly even when far:
 #: a direct pair costs less than a quadrupole evaluation.
 DIRECT_MAX = 4
@@ -159,10 +163,9 @@ class Tree:
         self._nd = np.empty((self._start.size, _k.NODE_COLS))
         _k.node_data(self._start, self._end, self._x, self._y, self._z, self._q, self._r,
                      rad is not None, self._nd)
-        leaves = np.flatnonzero(self._nchild == 0)
-        self._leaf_start = self._start[leaves]
-        self._leaf_end = self._end[leaves]
-        self._leaf_geom = np.empty((leaves.size, 7))
+        self._leaf_start, self._leaf_end = _k.groups(self._start, self._end, self._first, self._nchild,
+                                                     GROUP_SIZE)
+        self._leaf_geom = np.empty((self._leaf_start.size, 7))
         _k.group_geometry(self._leaf_start, self._leaf_end, self._x, self._y, self._z, self._r,
                           rad is not None, self._leaf_geom)
 
@@ -216,11 +219,9 @@ class Tree:
             tz = np.ascontiguousarray(z[tperm])
             del x, y, z
             tr = np.zeros(m) if use_radii else np.zeros(0)
-            s, e, _, nch = _k.build_topology(tcodes, self.leaf_size)
+            s, e, fc, nch = _k.build_topology(tcodes, self.leaf_size)
             del tcodes
-            leaves = nch == 0
-            gstart = np.ascontiguousarray(s[leaves])
-            gend = np.ascontiguousarray(e[leaves])
+            gstart, gend = _k.groups(s, e, fc, nch, GROUP_SIZE)
             gc = np.empty((gstart.size, 7))
             _k.group_geometry(gstart, gend, tx, ty, tz, tr, False, gc)
         m = tx.size

@@ -36,7 +36,7 @@ def test_madelung_rock_salt():
     a = 2.82e-10
     idx = np.array([(i, j, k) for i in range(2) for j in range(2) for k in range(2)], dtype=float)
     q = ELEMENTARY_CHARGE * (-1.0) ** idx.sum(axis=1)
-    e = chargesim.coulomb.energy(idx * a, q, method="mesh", box=np.full(3, 2 * a), accuracy=1e-7)
+    e = chargesim.energy(idx * a, q, method="mesh", box=np.full(3, 2 * a), accuracy=1e-7)
     m = -e * a / (4.0 * COULOMB_K * ELEMENTARY_CHARGE ** 2)
     assert m == pytest.approx(MADELUNG_NACL, abs=1e-5)
 

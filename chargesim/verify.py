@@ -430,6 +430,28 @@ def _madelung_mesh():
     return _rock_salt_madelung("mesh", 1e-6)
 
 
+# --- layouts ------------------------------------------------------------------------------
+
+_THOMSON = {2: 0.500000, 3: 1.732051, 4: 3.674234, 5: 6.474691, 6: 9.985281, 12: 49.165253}
+
+
+def _thomson(n):
+    from . import relax
+    from .physics.constants import COULOMB_K
+
+    rng = np.random.default_rng(100 + n)
+    q = 1.0 / math.sqrt(COULOMB_K)  # k q^2 = 1: energies in the problem's units
+    res = relax(rng.normal(size=(n, 3)), np.full(n, q), radius=1.0, restarts=3, rng=rng)
+    if not res.converged:
+        raise ArithmeticError(f"relaxation of {n} charges did not converge (residual {res.residual:.2e})")
+    return res.energy
+
+
+for _n, _e in _THOMSON.items():
+    case(f"thomson_N{_n}", _e, "Thomson problem, unit sphere, k = q = 1: Wales & Ulker, Phys. Rev. B 74, "
+         "212101 (2006)", 1e-6, "1", quick=_n <= 6, absolute=True)(lambda n=_n: _thomson(n))
+
+
 # --- fast methods against the direct sum -------------------------------------------------
 
 def _rms_error_against_direct(n, **options):

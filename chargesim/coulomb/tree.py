@@ -10,9 +10,9 @@ its extent b (largest distance of one of its particles from that centre).
 Targets are sorted by Morton code too and evaluated in groups of neighbouring
 targets (the largest nodes of the targets' own octree holding at most
 ``GROUP_SIZE`` of them): one walk of the source tree per group gives its
-interaction lists (its near particles gathered into one contiguous run), which every target of the
-group then sums in a vectorised loop, in the same fixed order whatever the
-thread count.
+interaction lists (its near particles gathered into one contiguous run),
+which every target of the group then sums in vectorised loops, in the same
+fixed order whatever the thread count.
 
 Opening criterion. A node is used as a multipole for a group when every
 point of the group's bounding box (so every target of the group) is at
@@ -52,22 +52,24 @@ OPTIONS = {"accuracy": 1e-3}
 #: Particles above which the tree beats the direct sum on the reference
 #: machine (2-core AMD EPYC, shared), field + potential at every particle,
 #: accuracy 1e-3, uniform mixed-sign charges; measured by
-#: ``benchmarks/bench_tree.py`` (see the table there). Placeholder until measured.
-CROSSOVER = 5000
+#: ``benchmarks/bench_tree.py``: direct/tree time 0.95 at N = 1000 (0.92 vs
+#: 0.97 ms), 2.1 at 2000, 4.1 at 5000, 6.1 at 20000.
+CROSSOVER = 1100
 
-#: Most particles in a leaf of the source tree (and in a target group).
+#: Most particles in a leaf of the source tree.
 LEAF_SIZE = 64
 #: Most targets in a group that shares one walk of the tree (the largest
 #: Morton-contiguous tree nodes below this size).
 GROUP_SIZE = 128
 #: Nodes with at most this many particles are summed exactly even when far:
-#: a direct pair costs less than a quadrupole evaluation.
+#: a few direct pairs cost less than one multipole evaluation.
 DIRECT_MAX = 4
 #: Opening angle at accuracy 1e-3 (calibrated, see the module docstring:
 #: with leaves of 64, measured rms errors 2e-4 (uniform) and 3e-4 (clustered)
 #: at theta 0.4 on 1e5 mixed-sign charges, falling as theta^4).
 THETA_REF = 0.4
-#: Expansion order: the error falls as theta ** (ORDER + 1).
+#: Expansion order, 2 (quadrupole) or 3 (octupole): the error falls as
+#: theta ** (ORDER + 1); at equal error the octupole is the faster.
 ORDER = 3
 #: Range of the opening angle: below 0.1 the tree degenerates into the direct
 #: sum, above 0.75 the expansion converges too slowly to be controlled.

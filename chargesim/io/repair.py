@@ -123,7 +123,8 @@ def open_for_reading(path):
     try:
         return h5py.File(path, "r")
     except OSError as exc:
-        if "already open for write" not in str(exc):
+        # a killed writer's mark, or a live writer's lock: SWMR readers may share
+        if "already open for write" not in str(exc) and "lock" not in str(exc):
             raise
     try:
         return h5py.File(path, "r", swmr=True)

@@ -304,3 +304,18 @@ def test_memory_per_particle():
     pos = _clustered(rng, 50_000)
     t = tree.Tree(pos, _mixed(rng, 50_000))
     assert t.nbytes / 50_000 < 500
+
+
+def test_target_groups_partition_in_morton_order():
+    # structure: groups are consecutive runs covering every sorted target once,
+    # each within GROUP_SIZE unless it is a single leaf (identical codes)
+    rng = _rng(12)
+    for pos in (_uniform(rng, 20_000), _clustered(rng, 20_000)):
+        t = tree.Tree(pos, _mixed(rng, 20_000))
+        gs, ge = t._leaf_start, t._leaf_end
+        assert gs[0] == 0 and ge[-1] == 20_000
+        np.testing.assert_array_equal(gs[1:], ge[:-1])
+        assert np.all(ge - gs <= tree.GROUP_SIZE)
+        # small siblings are merged: on average groups are over half full
+        # (without merging a uniform cloud of 2e4 gives 512 groups of ~39)
+        assert gs.size < 2 * 20_000 / tree.GROUP_SIZE

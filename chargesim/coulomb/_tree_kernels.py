@@ -260,26 +260,62 @@ def node_data(start, end, x, y, z, q, rad, use_radii, out):
 
 @numba.njit(cache=True)
 def groups(start, end, first, nchild, group_size):
-    """Target groups: the largest nodes holding at most ``group_size`` points
-    (or leaves), in Morton order. Returns (gstart, gend)."""
+    """Target groups in Morton order: the largest nodes holding at most
+    ``group_size`` points (or leaves), and runs of consecutive small siblings
+    merged while their total stays within ``group_size`` (a uniform octree
+    level can hold far fewer points than ``group_size``; merged siblings are
+    still one Morton-contiguous, compact run). Returns (gstart, gend)."""
     gs = np.empty(start.size, np.int64)
     ge = np.empty(start.size, np.int64)
     ng = 0
     stack = np.empty(8 * (MORTON_BITS + 2), np.int64)
+    if end[0] - start[0] <= group_size or nchild[0] == 0:
+        gs[0] = start[0]
+        ge[0] = end[0]
+        return gs[:1].copy(), ge[:1].copy()
     stack[0] = 0
     sp = 1
     while sp > 0:
         sp -= 1
         k = stack[sp]
-        if end[k] - start[k] <= group_size or nchild[k] == 0:
-            gs[ng] = start[k]
-            ge[ng] = end[k]
+        # k is too big: group its children, recurse into the big ones
+        c0 = first[k]
+        nc = nchild[k]
+        run_s = -1
+        run_e = -1
+        big = np.empty(8, np.int64)
+        nbig = 0
+        for c in range(c0, c0 + nc):
+            n_c = end[c] - start[c]
+            if n_c <= group_size or nchild[c] == 0:
+                if run_s >= 0 and run_e - run_s + n_c <= group_size:
+                    run_e = end[c]
+                else:
+                    if run_s >= 0:
+                        gs[ng] = run_s
+                        ge[ng] = run_e
+                        ng += 1
+                    run_s = start[c]
+                    run_e = end[c]
+            else:
+                if run_s >= 0:
+                    gs[ng] = run_s
+                    ge[ng] = run_e
+                    ng += 1
+                    run_s = -1
+                big[nbig] = c
+                nbig += 1
+        if run_s >= 0:
+            gs[ng] = run_s
+            ge[ng] = run_e
             ng += 1
-        else:
-            for c in range(nchild[k] - 1, -1, -1):
-                stack[sp] = first[k] + c
-                sp += 1
-    return gs[:ng].copy(), ge[:ng].copy()
+        for b in range(nbig - 1, -1, -1):
+            stack[sp] = big[b]
+            sp += 1
+    # the stack order visits big children after the small runs of their
+    # parent: sort the groups by start so they stay in Morton order
+    o = np.argsort(gs[:ng])
+    return gs[:ng][o].copy(), ge[:ng][o].copy()
 
 
 @numba.njit(parallel=True, cache=True)

@@ -9,7 +9,8 @@ its extent b (largest distance of one of its particles from that centre).
 
 Targets are sorted by Morton code too and evaluated in groups of neighbouring
 targets (the largest nodes of the targets' own octree holding at most
-``GROUP_SIZE`` of them): one walk of the source tree per group gives its
+``GROUP_SIZE`` of them, consecutive small siblings merged up to that size):
+one walk of the source tree per group gives its
 interaction lists (its near particles gathered into one contiguous run),
 which every target of the group then sums in vectorised loops, in the same
 fixed order whatever the thread count.
@@ -59,15 +60,21 @@ CROSSOVER = 1100
 #: Most particles in a leaf of the source tree.
 LEAF_SIZE = 64
 #: Most targets in a group that shares one walk of the tree (the largest
-#: Morton-contiguous tree nodes below this size).
+#: tree nodes below this size, runs of small siblings merged up to it: in a
+#: uniform cloud one octree level often holds only ~25 points, and 4x fewer
+#: walks pay more than the slightly larger group boxes cost).
 GROUP_SIZE = 128
 #: Nodes with at most this many particles are summed exactly even when far:
 #: a few direct pairs cost less than one multipole evaluation.
 DIRECT_MAX = 4
 #: Opening angle at accuracy 1e-3 (calibrated, see the module docstring:
-#: with leaves of 64, measured rms errors 2e-4 (uniform) and 3e-4 (clustered)
-#: at theta 0.4 on 1e5 mixed-sign charges, falling as theta^4).
-THETA_REF = 0.4
+#: with leaves of 64 and merged groups of 128, measured rms errors on 1e5
+#: mixed-sign charges, 1000 sampled particles, seeds 1-3 of
+#: benchmarks/bench_tree.py's sets: uniform 1.4-3.4e-4, clustered 0.9-4.7e-4
+#: at 1e-3; at 1e-4 at most 0.29 x accuracy, at 1e-2 (theta clipped to 0.75)
+#: at most 0.43 x. At 0.44 the worst clustered set reached 0.56 x: the
+#: error grows faster than theta^4 there, so 0.42 keeps a 2x margin.)
+THETA_REF = 0.42
 #: Expansion order, 2 (quadrupole) or 3 (octupole): the error falls as
 #: theta ** (ORDER + 1); at equal error the octupole is the faster.
 ORDER = 3

@@ -124,7 +124,7 @@ def open_for_reading(path):
         return h5py.File(path, "r")
     except OSError as exc:
         # a killed writer's mark, or a live writer's lock: SWMR readers may share
-        if "already open for write" not in str(exc) and "lock" not in str(exc):
+        if "already open for write" not in str(exc) and "unable to lock file" not in str(exc):
             raise
     try:
         return h5py.File(path, "r", swmr=True)

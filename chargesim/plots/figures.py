@@ -14,7 +14,7 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 from matplotlib.colors import LogNorm  # noqa: E402
 from matplotlib.patches import Circle, Rectangle  # noqa: E402
-from matplotlib.ticker import MaxNLocator  # noqa: E402
+from matplotlib.ticker import FuncFormatter, MaxNLocator  # noqa: E402
 
 from ..analysis import efficiency  # noqa: E402
 
@@ -26,6 +26,26 @@ def _save(fig, path):
     fig.savefig(path, dpi=110, bbox_inches="tight")
     plt.close(fig)
     return path
+
+
+def _minor_label(v, _pos=None):
+    """Label minor log ticks at 2 and 5 times a power of ten only (room)."""
+    if v <= 0:
+        return ""
+    lead = round(v / 10 ** math.floor(math.log10(v) + 1e-9))
+    return f"{v:g}" if lead in (2, 5) else ""
+
+
+def _plain_log_axis(axis):
+    """Log-axis labels as plain numbers (0.5, 1, 2, 5, 10), not 5 x 10^-1."""
+    axis.set_major_formatter(FuncFormatter(lambda v, _pos: f"{v:g}"))
+    axis.set_minor_formatter(FuncFormatter(_minor_label))
+
+
+def _plain(cbar):
+    """Colour-bar labels as plain numbers."""
+    _plain_log_axis(cbar.ax.yaxis)
+    return cbar
 
 
 def _figure(width, height):
@@ -146,7 +166,7 @@ def field_map(res, path, name=None):
     norm = LogNorm(vmin=max(pos.min(), pos.max() * 1e-4) / 1e3, vmax=pos.max() / 1e3) if pos.size and \
         pos.max() > 30 * pos.min() else None
     pm = ax.pcolormesh(ca, cb, mag.T / 1e3, shading="auto", cmap="viridis", norm=norm)
-    fig.colorbar(pm, ax=ax, label="electric field magnitude |E| (kV/m)")
+    _plain(fig.colorbar(pm, ax=ax, label="electric field magnitude |E| (kV/m)"))
     # field lines: resample the in-plane components on an even grid for streamplot
     from scipy.interpolate import RegularGridInterpolator
 
@@ -215,7 +235,7 @@ def particle_paths(res, path):
         ax.plot(p[:, a], p[:, b], "-", color=col, lw=0.8, alpha=0.8)
         ax.plot(p[-1, a], p[-1, b], ".", color=col, ms=2)
     sm = plt.cm.ScalarMappable(norm=norm, cmap=cmap)
-    fig.colorbar(sm, ax=ax, label="particle diameter (µm)")
+    _plain(fig.colorbar(sm, ax=ax, label="particle diameter (µm)"))
     drawn = _draw_outlines(ax, res.info, a, b, 3 - a - b, 0.5 * (lo[3 - a - b] + hi[3 - a - b]),
                            ((lo[a], hi[a]), (lo[b], hi[b])))
     ax.set_xlabel(f"{_AX[a]} (m)")
@@ -346,6 +366,7 @@ def grade_efficiency(res, path):
         ax.text(0.02, 0.02, "Deutsch–Anderson curve not drawn:\nno migration velocities / A/Q in the file",
                 transform=ax.transAxes, fontsize=8, va="bottom")
     ax.set_xscale("log")
+    _plain_log_axis(ax.xaxis)
     ax.set_ylim(-0.02, 1.05)
     ax.set_xlabel("particle diameter (µm), bin geometric centre")
     ax.set_ylabel("collection efficiency (1)")

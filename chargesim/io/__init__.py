@@ -7,11 +7,13 @@ API summary (the scenario builder and ``chargesim report`` build against this)
 -----------------------------------------------------------------------------
 Writing a run (``writer.py``)
     ``ResultsWriter(path, *, scenario_text, seed, overwrite=False,
-    compression="gzip")`` implements the recorder protocol of
-    ``chargesim.motion.recorder`` (``start``, ``frame``, ``deposits``,
-    ``escapes``, ``diagnostics``, ``checkpoint``, ``finish``). While the run
-    goes everything lands in ``PATH.partial`` (HDF5 SWMR mode, flushed after
-    every append) and checkpoints in ``PATH.checkpoint`` (written atomically);
+    compression="gzip", frame_float_compression=None, flush_interval=1.0)``
+    implements the recorder protocol of ``chargesim.motion.recorder``
+    (``start``, ``frame``, ``deposits``, ``escapes``, ``diagnostics``,
+    ``checkpoint``, ``finish``). While the run goes everything lands in
+    ``PATH.partial`` (HDF5 SWMR mode; frames flushed at once, events and
+    diagnostics within ``flush_interval`` seconds and with every frame and
+    checkpoint) and checkpoints in ``PATH.checkpoint`` (written atomically);
     ``finish(summary)`` writes ``/final`` and ``/summary`` last, renames
     ``PATH.partial`` -> ``PATH``, writes the XDMF sidecar ``PATH`` with suffix
     ``.xdmf``, and removes the checkpoint. ``/final`` is taken from
@@ -67,6 +69,10 @@ Reading (``reader.py``)
     ``collection_efficiency()``, ``grade_efficiency(edges)``. Opens
     ``PATH.partial`` too (``finished`` False). Not our format, corrupt or
     truncated -> ``ValueError`` naming the path and what is wrong.
+
+Repair (``repair.py``)
+    ``clear_status_flags(path)`` (like ``h5clear -s``) and
+    ``open_for_reading(path)``: open files a killed writer left marked open.
 
 XDMF (``xdmf.py``)
     ``write_xdmf(h5_path, xdmf_path=None) -> path``: XDMF 3 sidecar with the

@@ -13,6 +13,7 @@ import os
 import h5py
 import numpy as np
 
+from ..analysis import efficiency
 from . import schema as S
 from .repair import open_for_reading
 
@@ -249,8 +250,6 @@ class Results:
         -------
         The analysis layer's grade-efficiency result for this file.
         """
-        from ..analysis import efficiency  # analysis sits above the file layer: import on use
-
         if edges is None:
             edges = self.info.get("size_bins")
         return efficiency.grade_efficiency_from_results(self, edges)

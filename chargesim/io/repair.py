@@ -79,6 +79,23 @@ def status_flags(path):
     return head[11]
 
 
+def stored_end_of_file(path):
+    """The end-of-file address a cleanly closed file's superblock records, bytes.
+
+    None for files without a v2/v3 superblock, and for files still marked
+    open for writing (their recorded end may lag what is on disk).
+    """
+    with open(path, "rb") as fh:
+        head = fh.read(64)
+    end = _superblock(head)
+    if end is None or head[11] != 0:
+        return None
+    size_off = head[9]
+    base = int.from_bytes(head[12:12 + size_off], "little")
+    eof = int.from_bytes(head[12 + 2 * size_off:12 + 3 * size_off], "little")
+    return base + eof
+
+
 def clear_status_flags(path):
     """Zero the file-consistency flags of ``path`` (like ``h5clear -s``).
 
@@ -120,6 +137,12 @@ def open_for_reading(path):
 
     import h5py
 
+    # A truncated file must be refused before HDF5 reads it: its metadata
+    # reads past the end fail their checksums, and HDF5 retries those with
+    # growing pauses (SWMR readers for up to an hour) instead of failing.
+    expected = stored_end_of_file(path)
+    if expected is not None and os.path.getsize(path) < expected:
+        raise OSError(f"truncated file: {os.path.getsize(path)} bytes on disk, the file records {expected}")
     try:
         return h5py.File(path, "r")
     except OSError as exc:

@@ -45,7 +45,10 @@ def _run(path, *, field=True, frames=True):
             info = dict(info, size_bins=[1e-6, 3e-6, 6e-6, 2e-5], migration_velocity=[0.01, 0.03, 0.06],
                         collection_area_per_flow=5.0, hazards=[{"kind": "breakdown", "name": "plate",
                                                                  "message": "invented finding for the test",
-                                                                 "value": 1.0, "threshold": 2.0, "units": "V/m"}])
+                                                                 "value": 1.0, "threshold": 2.0, "units": "V/m"},
+                                                                {"kind": "corona_onset", "name": "wire",
+                                                                 "severity": "info", "message": "invented onset",
+                                                                 "value": 6.0, "threshold": 5.0, "units": "V/m"}])
             w.start(info)
     sim.run(t_end=0.5, recorder=Info())
     return path
@@ -72,6 +75,9 @@ def test_report_figures_and_summary(tmp_path):
     res = open_results(p)
     assert f"{res.summary['collection_efficiency']:.6g}" in text
     assert "invented finding for the test" in text and "local codes" in text
+    # information findings (corona onset) stand apart from the hazards
+    corona, safety = text.index("Corona electrodes"), text.index("Safety findings")
+    assert corona < text.index("invented onset") < safety < text.index("invented finding for the test")
     assert f"deposited on 'plate': {len(res.deposits['id'])} simulated" in text
     assert "grade efficiency" in text
 

@@ -117,8 +117,15 @@ def _draw_outlines(ax, info, a, b, c, c0, extent):
                 lo, hi = np.asarray(it["points"][0], float), np.asarray(it["points"][1], float)
                 lo_a, hi_a = np.clip([lo[a], hi[a]], a0, a1)
                 lo_b, hi_b = np.clip([lo[b], hi[b]], b0, b1)
-                ax.add_patch(Rectangle((lo_a, lo_b), max(hi_a - lo_a, 0), max(hi_b - lo_b, 0), fill=True,
-                                       color="0.3", lw=2, zorder=5))
+                size = np.abs(hi - lo)
+                if np.argmin(size) == c:
+                    # seen face-on: its outline behind the paths, never a solid
+                    # block that hides them
+                    ax.add_patch(Rectangle((lo_a, lo_b), max(hi_a - lo_a, 0), max(hi_b - lo_b, 0), fill=False,
+                                           edgecolor="0.3", ls="--", lw=1.2, zorder=1))
+                else:
+                    ax.add_patch(Rectangle((lo_a, lo_b), max(hi_a - lo_a, 0), max(hi_b - lo_b, 0), fill=True,
+                                           color="0.3", lw=2, zorder=5))
             elif kind == "plane":
                 p = np.asarray(it["points"][0] if "points" in it else it["point"], float)
                 n = np.asarray(it["normal"], float)
@@ -218,7 +225,14 @@ def particle_paths(res, path):
         for i, p in zip(dep["id"][sel], dep["position"][sel]):
             tracks[int(i)].append(p)  # the path ends on the surface
     spread = hi - lo
-    a, b = np.argsort(-spread, kind="stable")[:2]  # the longer side across the page
+    # the page shows the main direction of travel and the widest other axis
+    travel = np.zeros(3)
+    for pts in tracks.values():
+        if len(pts) > 1:
+            travel += np.abs(np.asarray(pts[-1]) - np.asarray(pts[0]))
+    t = int(np.argmax(travel)) if travel.any() else int(np.argmax(spread))
+    others = [k for k in np.argsort(-spread, kind="stable") if k != t]
+    a, b = sorted((t, int(others[0])), key=lambda k: -spread[k])  # the longer side across the page
     fig, ax, to_scale = _figure(spread[a], spread[b])
     ds = np.array([diam[i] for i in tracks if tracks[i]])
     if ds.size == 0:

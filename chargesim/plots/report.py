@@ -91,18 +91,27 @@ def summary_text(res, notes, grade=None):
                  f"field grids: {', '.join(res.field_names) or 'none'}")
     lines.append("")
     hz = _hazards(res)
+    info = [h for h in hz if isinstance(h, dict) and h.get("severity") == "info"]
+    hz = [h for h in hz if h not in info]
+
+    def finding(h):
+        if not isinstance(h, dict):
+            return f"  - {h}"
+        msg = h.get("message") or h.get("kind")
+        extra = ""
+        if "value" in h and "threshold" in h:
+            extra = f" ({_fmt(h['value'], h.get('units', ''))} vs {_fmt(h['threshold'], h.get('units', ''))})"
+        return f"  - [{h.get('kind', 'finding')}] {h.get('name', '')}: {msg}{extra}"
+
+    if info:
+        # corona onset of discharge electrodes: information for the design, not a hazard
+        lines.append("Corona electrodes")
+        lines.extend(finding(h) for h in info)
+        lines.append("")
     lines.append("Safety findings")
     if not hz:
         lines.append("  none stored in this file")
-    for h in hz:
-        if isinstance(h, dict):
-            msg = h.get("message") or h.get("kind")
-            extra = ""
-            if "value" in h and "threshold" in h:
-                extra = f" ({_fmt(h['value'], h.get('units', ''))} vs limit {_fmt(h['threshold'], h.get('units', ''))})"
-            lines.append(f"  - [{h.get('kind', 'finding')}] {h.get('name', '')}: {msg}{extra}")
-        else:
-            lines.append(f"  - {h}")
+    lines.extend(finding(h) for h in hz)
     lines.append("")
     lines.append("Cautions")
     caut = _cautions().splitlines()

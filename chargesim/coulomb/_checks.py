@@ -7,6 +7,8 @@ import math
 
 import numpy as np
 
+from .._validate import positive  # noqa: F401  (re-exported for the method modules)
+
 
 def _first_bad_row(arr):
     bad = ~np.isfinite(arr)
@@ -87,17 +89,6 @@ def as_box(value):
     if box.shape != (3,) or not np.all(np.isfinite(box)) or np.any(box <= 0):
         raise ValueError(f"box must be three finite positive edge lengths in m, got {value!r}")
     return box
-
-
-def positive(value, name):
-    """Check a finite positive scalar option and return it as float."""
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be a positive number, got {value!r}") from None
-    if not math.isfinite(v) or v <= 0:
-        raise ValueError(f"{name} must be a finite positive number, got {value!r}")
-    return v
 
 
 def coincident(target, source, self_targets):

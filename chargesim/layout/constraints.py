@@ -21,18 +21,7 @@ v(x) = omega x x + t that keep it on the constraint (to find trivial modes).
 import math
 
 import numpy as np
-
-
-def _vector(value, name, *, nonzero=False):
-    try:
-        v = np.asarray(value, dtype=np.float64).reshape(-1)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be three numbers, got {value!r}") from None
-    if v.shape != (3,) or not np.all(np.isfinite(v)):
-        raise ValueError(f"{name} must be three finite numbers, got {value!r}")
-    if nonzero and not np.any(v):
-        raise ValueError(f"{name} must not be the zero vector")
-    return v
+from .._validate import vector as _vector
 
 
 def _cross_rows(a):

@@ -12,36 +12,9 @@ A particle touching a collector at the start of a step (s = 0) deposits at once.
 import math
 
 import numpy as np
+from .._validate import positive as _positive, unit as _unit, vector as _vector
 
 _KINDS = ("open", "periodic", "reflecting")
-
-
-def _vector(value, name):
-    try:
-        v = np.asarray(value, dtype=np.float64).reshape(-1)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be three numbers, got {value!r}") from None
-    if v.shape != (3,) or not np.all(np.isfinite(v)):
-        raise ValueError(f"{name} must be three finite numbers, got {value!r}")
-    return v
-
-
-def _unit(value, name):
-    v = _vector(value, name)
-    n = float(np.linalg.norm(v))
-    if not n > 0:
-        raise ValueError(f"{name} must be a non-zero vector")
-    return v / n
-
-
-def _positive(value, name):
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be a positive number, got {value!r}") from None
-    if not math.isfinite(v) or v <= 0:
-        raise ValueError(f"{name} must be a finite positive number, got {value!r}")
-    return v
 
 
 def _name(value):

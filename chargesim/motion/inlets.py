@@ -9,36 +9,7 @@ charges), so a run is reproducible from its seed.
 import math
 
 import numpy as np
-
-
-def _positive(value, name, *, allow_inf=False):
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be a positive number, got {value!r}") from None
-    if math.isnan(v) or v <= 0 or (math.isinf(v) and not allow_inf):
-        raise ValueError(f"{name} must be a {'' if allow_inf else 'finite '}positive number, got {value!r}")
-    return v
-
-
-def _finite(value, name):
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be a number, got {value!r}") from None
-    if not math.isfinite(v):
-        raise ValueError(f"{name} must be finite, got {value!r}")
-    return v
-
-
-def _vector(value, name):
-    try:
-        v = np.asarray(value, dtype=np.float64).reshape(-1)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be three numbers, got {value!r}") from None
-    if v.shape != (3,) or not np.all(np.isfinite(v)):
-        raise ValueError(f"{name} must be three finite numbers, got {value!r}")
-    return v
+from .._validate import finite as _finite, positive as _positive, vector as _vector
 
 
 # -- size distributions -------------------------------------------------------

@@ -10,26 +10,7 @@ import numpy as np
 
 from ..physics import aerosol
 from ..physics.constants import ROOM_TEMPERATURE, STANDARD_PRESSURE
-
-
-def _positive(value, name):
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be a positive number, got {value!r}") from None
-    if not math.isfinite(v) or v <= 0:
-        raise ValueError(f"{name} must be a finite positive number, got {value!r}")
-    return v
-
-
-def _vector(value, name):
-    try:
-        v = np.asarray(value, dtype=np.float64).reshape(-1)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be three numbers, got {value!r}") from None
-    if v.shape != (3,) or not np.all(np.isfinite(v)):
-        raise ValueError(f"{name} must be three finite numbers, got {value!r}")
-    return v
+from .._validate import positive as _positive, vector as _vector
 
 
 def _axis(value, name):

@@ -36,6 +36,7 @@ from .medium import Medium
 from .recorder import EVENT_FIELDS
 from .state import ParticleState
 from .zones import ChargingZone
+from .._validate import vector as _vector
 
 _DEFAULT = object()
 
@@ -56,16 +57,6 @@ DIAGNOSTICS = {
 
 #: Name and version of the checkpoint dict layout.
 CHECKPOINT_FORMAT = ("chargesim.motion.checkpoint", 1)
-
-
-def _vector(value, name):
-    try:
-        v = np.asarray(value, dtype=np.float64).reshape(-1)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be three numbers, got {value!r}") from None
-    if v.shape != (3,) or not np.all(np.isfinite(v)):
-        raise ValueError(f"{name} must be three finite numbers, got {value!r}")
-    return v
 
 
 class System:

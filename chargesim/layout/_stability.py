@@ -319,13 +319,18 @@ def analyse(system, x_all, forces, length, stiffness, *, method="auto", n_lowest
             return out + sigma * (w - pw) if d else out
 
         k = max(1, min(n_lowest, m - d - 1)) if m - d > 1 else 1
+        # Lanczos (one vector per step) can miss a copy of a degenerate
+        # eigenvalue: ask for twice as many (at least 4 more) than are kept,
+        # from a fixed start vector, so the result is the same on any machine
+        k_ask = min(max(2 * k, k + 4), m - 1)
         lin = spla.LinearOperator((m, m), matvec=op, dtype=float)
+        v0 = np.random.default_rng(0).standard_normal(m)
         try:
-            values, vecs = spla.eigsh(lin, k=k, which="SA", tol=1e-9, maxiter=max(1000, 20 * m))
+            values, vecs = spla.eigsh(lin, k=k_ask, which="SA", tol=1e-9, maxiter=max(1000, 20 * m), v0=v0)
         except spla.ArpackNoConvergence as exc:
             values, vecs = exc.eigenvalues, exc.eigenvectors
             notes.append(f"Lanczos iteration converged {values.size} of {k} eigenvalues")
-        order = np.argsort(values)
+        order = np.argsort(values)[:k]
         values, vecs = values[order], vecs[:, order]
         k_modes = min(k_modes, values.size)
         vecs = vecs[:, :k_modes]

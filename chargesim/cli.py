@@ -167,6 +167,9 @@ def main(argv=None):
     except KeyboardInterrupt:
         _err("interrupted")
         return 1
+    except BrokenPipeError:  # the reader of our output went away (| head): stop quietly
+        sys.stdout = open(os.devnull, "w")  # nothing more to flush at exit
+        return 1
     except Exception as exc:  # a failure while running: one message, no traceback
         if getattr(args, "debug", False):
             raise

@@ -672,12 +672,24 @@ def _figure(sweep, table, path):
 
 # --- command line -------------------------------------------------------------------------
 
+def _count(text):
+    import argparse
+
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 1, got {text!r}")
+    return n
+
+
 def add_arguments(parser):
     """Command-line options of ``chargesim sweep``."""
     parser.add_argument("sweep", help="sweep file (TOML)")
     parser.add_argument("-o", "--output", required=True, metavar="DIR", help="output directory")
     parser.add_argument("--scheduler", metavar="ADDRESS", help="Dask distributed scheduler, e.g. tcp://host:8786")
-    parser.add_argument("--workers", type=int, metavar="N", help="local worker processes (default: cores)")
+    parser.add_argument("--workers", type=_count, metavar="N", help="local worker processes (default: cores)")
     parser.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
@@ -687,8 +699,6 @@ def command(args):
     A sweep file that does not validate raises ``ScenarioError`` (exit 2 by the
     command line).
     """
-    if args.workers is not None and args.workers < 1:
-        raise ValueError(f"--workers must be >= 1, got {args.workers}")
     sweep = load_sweep(args.sweep)
     rows = run_sweep(sweep, args.output, scheduler=args.scheduler, workers=args.workers, quiet=args.quiet)
     failed = [r for r in rows if r["status"] != "ok"]

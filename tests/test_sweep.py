@@ -185,3 +185,9 @@ def test_shipped_sweep_file_validates():
     for name in shipped:
         s = sweep.load_sweep(os.path.join(HERE, "..", "scenarios", name))
         assert len(s.points) >= 4
+
+
+def test_bad_worker_count_is_a_usage_error(tmp_path, capsys):
+    path = _write(tmp_path, _sweep_text(AXES))
+    assert cli.main(["sweep", path, "-o", str(tmp_path / "o"), "--workers", "0"]) == 2
+    assert "must be a whole number >= 1" in capsys.readouterr().err

@@ -4,9 +4,9 @@ Field at every particle of N = 1e5 and 1e6 mixed-sign charges (uniform in a
 cube and clustered), accuracy 1e-3, against ``fmm3dpy.lfmm3d`` at eps = 1e-3
 on the same points in the same run. Error: rms relative field error
 sqrt(sum|E - E_ref|^2 / sum|E_ref|^2) on 1000 sampled particles against the
-direct sum. Then the crossover against the direct sum (N = 1e3 .. 2e4).
+direct sum. Then the crossover against the direct sum (N = 500 .. 2e4).
 
-Usage: python benchmarks/bench_tree.py [--quick] [--no-fmm]
+Usage: python benchmarks/bench_tree.py [--quick] [--no-fmm] [--crossover-only]
 """
 import argparse
 import os
@@ -80,7 +80,13 @@ def main():
     ap = argparse.ArgumentParser(description=__doc__)
     ap.add_argument("--quick", action="store_true", help="N = 1e5 only")
     ap.add_argument("--no-fmm", action="store_true", help="skip fmm3dpy")
+    ap.add_argument("--crossover-only", action="store_true", help="only the crossover against the direct sum")
     args = ap.parse_args()
+    if args.crossover_only:
+        rng = np.random.default_rng(7)
+        tree.evaluate(rng.random((5000, 3)), rng.normal(size=5000), None, None)  # compile
+        crossover(rng)
+        return
     fmm3dpy = None
     if not args.no_fmm:
         import fmm3dpy
@@ -137,7 +143,7 @@ def crossover(rng):
     """Direct vs tree, field + potential at every particle, uniform mixed-sign."""
     rows = []
     found = None
-    for n in (1000, 2000, 3000, 5000, 7000, 10_000, 20_000):
+    for n in (500, 700, 1000, 1500, 2000, 3000, 5000, 10_000, 20_000):
         pos = rng.random((n, 3))
         q = rng.normal(size=n)
         t_d = median_time(lambda: direct.evaluate(pos, q, None, None), repeats=5)

@@ -54,9 +54,11 @@ OPTIONS = {"accuracy": 1e-3}
 #: Particles above which the tree beats the direct sum on the reference
 #: machine (2-core AMD EPYC, shared), field + potential at every particle,
 #: accuracy 1e-3, uniform mixed-sign charges; measured by
-#: ``benchmarks/bench_tree.py``: direct/tree time 0.95 at N = 1000 (0.92 vs
-#: 0.97 ms), 2.1 at 2000, 4.1 at 5000, 6.1 at 20000.
-CROSSOVER = 1100
+#: ``benchmarks/bench_tree.py --crossover-only``: direct/tree time 0.74 at
+#: N = 500, 1.07 at 700, 1.28 at 1000 (1.0 ms vs 0.79 ms; 1.04-1.37 over
+#: three runs), 1.8 at 2000, 3.0 at 5000, 7 at 20000. Put at 1000, where the
+#: tree is faster in every run.
+CROSSOVER = 1000
 
 #: Most particles in a leaf of the source tree.
 LEAF_SIZE = 64

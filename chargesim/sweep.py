@@ -314,6 +314,17 @@ def loads_sweep(text, path="<string>"):
                          "overrides")
             raise ScenarioError(path, where, f"{exc.path}: {exc.reason}") from None
     points = [{**data["overrides"], **dict(zip(keys, combo))} for combo in combos]
+    # values that fail for some points are recorded in their rows; a sweep in
+    # which no point is a valid scenario is a mistake in the sweep file
+    first_error = None
+    for point in points:
+        try:
+            base_scenario.replace(point)
+            break
+        except ScenarioError as exc:
+            first_error = first_error or exc
+    else:
+        raise ScenarioError(path, "", f"no point of the sweep is a valid scenario; the first says: {first_error}")
     return Sweep(str(path), text, base, keys, values, points, data)
 
 
@@ -622,6 +633,8 @@ def _write_h5(path, sweep, table):
 
 
 def _figure(sweep, table, path):
+    """The summary figure: a metric against one axis, one curve per value of
+    another; or, for grade efficiency, one curve per point against diameter."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -629,41 +642,58 @@ def _figure(sweep, table, path):
 
     fig_spec = sweep.data["figure"]
     keys = sweep.keys
-    xkey = fig_spec["x"] or keys[0]
-    skey = fig_spec["series"] or next((k for k in keys if k != xkey), None)
     y = fig_spec["y"]
-    if y not in table:
-        raise ValueError(f"metric {y!r} is not in the table")
     ok = [i for i, s in enumerate(table["status"]) if s == "ok"]
     if not ok:
         raise ValueError("no point finished")
-    def si(key, raw):
-        try:
-            return to_si(raw, _unit_of(key))
-        except ValueError:
-            return float("nan")
+    label_of = {a["key"]: a["label"] or a["key"] for a in sweep.data["axes"]}
+    if y == "grade_efficiency":
+        edges = sweep.data["grade_bins"]
+        if edges is None:
+            raise ValueError("a grade-efficiency figure needs grade_bins in the sweep file")
+        centres = np.sqrt(edges[:-1] * edges[1:])
+        cols = [f"grade_efficiency[{k}]" for k in range(centres.size)]
+        if any(c not in table for c in cols):
+            raise ValueError("the table has no grade-efficiency columns")
+        curves = [(", ".join(f"{label_of[k]} = {table[k][i]}" for k in keys), centres * 1e6,
+                   np.array([float(table[c][i]) for c in cols])) for i in ok]
+        xlabel, ylabel, log_x = "particle diameter (µm), bin geometric centre", "grade efficiency (1)", True
+        legend_title = None
+    else:
+        if y not in table:
+            raise ValueError(f"metric {y!r} is not in the table")
+        xkey = fig_spec["x"] or keys[0]
+        skey = fig_spec["series"] or next((k for k in keys if k != xkey), None)
 
-    xs = np.array([si(xkey, table[xkey][i]) for i in ok])
-    ys = np.array([float(table[y][i]) for i in ok])
-    series = [table[skey][i] for i in ok] if skey else [None] * len(ok)
-    xunit = _unit_of(xkey)
+        def si(raw):
+            try:
+                return to_si(raw, _unit_of(xkey))
+            except ValueError:
+                return math.nan
+
+        xs = np.array([si(table[xkey][i]) for i in ok])
+        ys = np.array([float(table[y][i]) for i in ok])
+        series = [table[skey][i] for i in ok] if skey else [None] * len(ok)
+        curves = []
+        for value in dict.fromkeys(series):
+            sel = np.array([j for j, v in enumerate(series) if v == value])
+            order = sel[np.argsort(xs[sel])]
+            curves.append((None if value is None else f"{value}", xs[order], ys[order]))
+        xlabel, ylabel = f"{label_of[xkey]} ({_unit_of(xkey)})", f"{y.replace('_', ' ')} ({METRICS[y]})"
+        log_x, legend_title = fig_spec["log_x"], (label_of[skey] if skey else None)
     fig, ax = plt.subplots(figsize=(7, 4.5))
-    for s in dict.fromkeys(series):
-        sel = [j for j, v in enumerate(series) if v == s]
-        order = np.argsort(xs[sel])
-        label = None if s is None else f"{skey} = {s}"
-        ax.plot(xs[sel][order], ys[sel][order], "o-", label=label)
-    label_of = {a["key"]: a["label"] for a in sweep.data["axes"]}
-    ax.set_xlabel(f"{label_of.get(xkey) or xkey} ({xunit})")
-    ax.set_ylabel(f"{y.replace('_', ' ')} ({METRICS[y]})")
-    if fig_spec["log_x"]:
+    for label, x, yv in curves:
+        ax.plot(x, yv, "o-", label=label)
+    ax.set_xlabel(xlabel)
+    ax.set_ylabel(ylabel)
+    if log_x:
         ax.set_xscale("log")
-    if METRICS[y] == "1":
+    if y == "grade_efficiency" or METRICS[y] == "1":
         ax.set_ylim(-0.02, 1.02)
     ax.grid(True, alpha=0.3)
-    if skey:
-        ax.legend(title=label_of.get(skey) or skey, fontsize=8)
-    ax.set_title(sweep.data["title"] or os.path.basename(sweep.path))
+    if any(c[0] for c in curves):
+        ax.legend(title=legend_title, fontsize=8)
+    ax.set_title(sweep.data["title"] or os.path.basename(sweep.path), fontsize=10)
     fig.tight_layout()
     fig.savefig(path, dpi=120)
     plt.close(fig)

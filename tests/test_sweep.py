@@ -191,3 +191,12 @@ def test_bad_worker_count_is_a_usage_error(tmp_path, capsys):
     path = _write(tmp_path, _sweep_text(AXES))
     assert cli.main(["sweep", path, "-o", str(tmp_path / "o"), "--workers", "0"]) == 2
     assert "must be a whole number >= 1" in capsys.readouterr().err
+
+
+def test_a_sweep_with_no_valid_point_is_a_sweep_file_error(tmp_path, capsys):
+    # every point asks for the 'single' distribution but gives no diameter
+    extra_axes = "[[axes]]\nkey = 'populations[0].distribution'\nvalues = ['single']"
+    path = _write(tmp_path, _sweep_text(extra_axes))
+    assert cli.main(["sweep", path, "-o", str(tmp_path / "o"), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "no point of the sweep is a valid scenario" in err and "for distribution = 'single'" in err

@@ -22,6 +22,7 @@ a = R_j.
 import numba
 import numpy as np
 
+from .._numba import serial_and_parallel
 from ._checks import coincident
 
 #: This method takes no options beyond the front door's common ones.
@@ -59,8 +60,7 @@ def _sphere(dx, dy, dz, qj, a2):
     return s3 * dx, s3 * dy, s3 * dz, pot, (0 if live else 1)
 
 
-@numba.njit(parallel=True, fastmath=_FM, cache=True)
-def _sum_points(sx, sy, sz, q, tx, ty, tz, ex, ey, ez, phi, nzero):
+def _sum_points_py(sx, sy, sz, q, tx, ty, tz, ex, ey, ez, phi, nzero):
     n = sx.size
     for i in numba.prange(tx.size):
         xi, yi, zi = tx[i], ty[i], tz[i]
@@ -83,8 +83,7 @@ def _sum_points(sx, sy, sz, q, tx, ty, tz, ex, ey, ez, phi, nzero):
         nzero[i] = c
 
 
-@numba.njit(parallel=True, fastmath=_FM, cache=True)
-def _sum_spheres(sx, sy, sz, q, rad, tx, ty, tz, trad, self_targets, ex, ey, ez, phi, nzero):
+def _sum_spheres_py(sx, sy, sz, q, rad, tx, ty, tz, trad, self_targets, ex, ey, ez, phi, nzero):
     n = sx.size
     for i in numba.prange(tx.size):
         xi, yi, zi, ri = tx[i], ty[i], tz[i], trad[i]
@@ -123,8 +122,8 @@ def _sum_spheres(sx, sy, sz, q, rad, tx, ty, tz, trad, self_targets, ex, ey, ez,
 # The same kernels compiled without threads: below SERIAL_PAIRS pair
 # interactions waking the thread pool costs more than the sum (milliseconds on
 # a loaded machine against microseconds of work).
-_sum_points_serial = numba.njit(fastmath=_FM, cache=True)(_sum_points.py_func)
-_sum_spheres_serial = numba.njit(fastmath=_FM, cache=True)(_sum_spheres.py_func)
+_sum_points_serial, _sum_points = serial_and_parallel(_sum_points_py, fastmath=_FM)
+_sum_spheres_serial, _sum_spheres = serial_and_parallel(_sum_spheres_py, fastmath=_FM)
 
 #: Pair count below which the serial kernels run.
 SERIAL_PAIRS = 200_000

@@ -37,6 +37,8 @@ import math
 import numba
 import numpy as np
 
+from .._numba import serial_and_parallel
+
 #: Code of particles emitted during the step (no second half yet).
 FRESH = -1
 
@@ -110,13 +112,9 @@ def _vv_second_py(v, a, u, beta, dt, codes, code, f0, err):
 PARALLEL_MIN = 20000
 
 
-def _pair(fn):
-    """Serial and parallel compilations of one kernel (prange acts as range
-    in the serial one); each particle's update is the same in both."""
-    return numba.njit(cache=True)(fn), numba.njit(parallel=True, cache=True)(fn)
-
-
-_KERNELS = {name: _pair(fn) for name, fn in (("exp_first", _exp_first_py), ("exp_second", _exp_second_py),
+# serial and parallel compilations of each kernel; each particle's update is
+# the same in both
+_KERNELS = {name: serial_and_parallel(fn) for name, fn in (("exp_first", _exp_first_py), ("exp_second", _exp_second_py),
                                               ("vv_first", _vv_first_py), ("vv_second", _vv_second_py))}
 
 

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 ROOT = pathlib.Path(__file__).resolve().parents[1]
-OVERRIDES = {"time.end": "0.16 s", "output.checkpoint_interval": "0.02 s", "output.frame_interval": "0.02 s",
+OVERRIDES = {"time.end": "0.5 s", "output.checkpoint_interval": "0.02 s", "output.frame_interval": "0.02 s",
              "inlets[0].rate": "1500 1/s"}
 
 
@@ -44,11 +44,10 @@ def test_kill_and_resume_bitwise(tmp_path):
     t0 = time.monotonic()
     while not ckpt.exists() and p.poll() is None and time.monotonic() - t0 < 300:
         time.sleep(0.05)
-    time.sleep(0.3)  # somewhere after the first checkpoint
-    if p.poll() is not None:
-        pytest.skip("the run finished before it could be killed")
+    time.sleep(0.1)  # somewhere after the first checkpoint
+    assert p.poll() is None, "the run finished before it could be killed: lengthen OVERRIDES['time.end']"
     p.send_signal(signal.SIGKILL)
-    p.wait()
+    assert p.wait() == -signal.SIGKILL, "the run ended before the kill: lengthen OVERRIDES['time.end']"
     assert not out.exists(), "a killed run must not leave a file under the final name"
     assert pathlib.Path(str(out) + ".partial").exists()
 

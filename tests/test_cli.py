@@ -1,29 +1,12 @@
 """The command line: malformed-scenario corpus (exit 2, exact message), check, run, field, report."""
 import json
-import pathlib
 
 import pytest
 
 from chargesim import __version__
 from chargesim.cli import main
+from scenario_fixtures import BASE, ROOT, SHIPPED
 
-ROOT = pathlib.Path(__file__).resolve().parents[1]
-SHIPPED = sorted(p for p in (ROOT / "scenarios").glob("*.toml") if "sweep" not in p.name and "layout" not in p.name)
-
-BASE = """
-[domain]
-lower = [0, 0, 0]
-upper = ["1 m", "1 m", "1 m"]
-
-[[populations]]
-name = "dust"
-diameter = "2.5 um"
-count = 10
-
-[time]
-step = "1 ms"
-end = "10 ms"
-"""
 
 
 def _sub(old, new):

@@ -1,8 +1,6 @@
 """Scenario loading: units, validation messages, physical checks, fuzzing, shipped scenarios."""
 import math
-import pathlib
 
-import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
@@ -11,24 +9,8 @@ from chargesim.scenario import ScenarioError, load_scenario, loads_scenario
 from chargesim.scenario.docs import render_reference
 from chargesim.scenario.load import set_key, tomllib
 from chargesim.scenario.units import to_si
+from scenario_fixtures import BASE, ROOT, SHIPPED
 
-ROOT = pathlib.Path(__file__).resolve().parents[1]
-SHIPPED = sorted(p for p in (ROOT / "scenarios").glob("*.toml") if "sweep" not in p.name and "layout" not in p.name)
-
-BASE = """
-[domain]
-lower = [0, 0, 0]
-upper = ["1 m", "1 m", "1 m"]
-
-[[populations]]
-name = "dust"
-diameter = "2.5 um"
-count = 10
-
-[time]
-step = "1 ms"
-end = "10 ms"
-"""
 
 
 def test_units_to_si():

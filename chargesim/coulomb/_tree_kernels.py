@@ -1,29 +1,22 @@
 """Numba kernels of the tree evaluator (see :mod:`chargesim.coulomb.tree`).
 
 Layout: sources are sorted by Morton code, so every tree node owns one
-contiguous index range ``[start, end)`` of the sorted arrays. Node data are
-kept in one (n_nodes, NODE_COLS) float64 array, one row per node:
+contiguous index range ``[start, end)`` of the sorted arrays. Node geometry
+is kept in one (n_nodes, NODE_COLS) float64 array, one row per node:
 
 =====  ==============================================================
 cols   meaning
 =====  ==============================================================
 0-2    geometric centre c (centre of the bounding box of the node's particles), m
 3      b = max |x_j - c| over the node's particles, m
-4      Q = sum q_j, C
-5-7    D = sum q_j s_j (s_j = x_j - c), C m
-8-13   M_ab = sum q_j (3 s_a s_b - |s|^2 delta_ab): xx, xy, xz, yy, yz, zz, C m^2
-14     largest particle radius in the node, m
-15     number of particles
-16-25  O_abc = sum q_j (15 s_a s_b s_c - 3 |s|^2 (s_a d_bc + s_b d_ac + s_c d_ab)):
-       xxx, xxy, xxz, xyy, xyz, xzz, yyy, yyz, yzz, zzz, C m^3
+4      largest particle radius in the node, m
+5      number of particles
 =====  ==============================================================
 
-The multipole expansion about c, truncated after the octupole, gives at
-r = x - c (|r| > b), with T = O:rrr and (O:rr)_a = O_abc r_b r_c::
-
-    phi ~ Q/r + D.r/r^3 + (r.M.r)/(2 r^5) + T/(6 r^7)
-    E   ~ Q r/r^3 + 3 (D.r) r/r^5 - D/r^3 + 5/2 (r.M.r) r/r^7 - M.r/r^5
-          + 7/6 T r/r^9 - (O:rr)/(2 r^7)
+and the node's multipole moments about c in a (n_nodes, NCOMP) array, in the
+stored form of :mod:`chargesim.coulomb._multipoles` (symmetric trace-free
+moments of orders 0..ORDER, scaled so that the generated far-field loops of
+:mod:`chargesim.coulomb._far_terms` are plain sums of products).
 
 Every target's sum runs in one thread in a fixed order (the traversal order),
 so results are bitwise reproducible and do not depend on the thread count.
@@ -31,9 +24,10 @@ so results are bitwise reproducible and do not depend on the thread count.
 import numba
 import numpy as np
 
-NODE_COLS = 26
-#: Far-field buffer rows: centre (3), Q, D (3), M (6), O (10).
-_FAR_ROWS = 23
+from ._far_terms import ROWS as _FAR_ROWS
+from ._far_terms import far_sum
+
+NODE_COLS = 6
 #: Bits per axis in the Morton code (3 * 21 = 63 bits fit an int64).
 MORTON_BITS = 21
 _MORTON_MAX = (1 << MORTON_BITS) - 1
@@ -169,11 +163,12 @@ def build_topology(codes, leaf_size):
 
 
 @numba.njit(parallel=True, cache=True)
-def node_data(start, end, x, y, z, q, rad, use_radii, out):
-    """Fill ``out`` (n_nodes, NODE_COLS): centre, extent, moments, max radius.
+def node_data(start, end, x, y, z, rad, use_radii, out):
+    """Fill ``out`` (n_nodes, NODE_COLS): centre, extent, max radius, count.
 
-    Moments are taken straight from the node's particles (not shifted from the
-    children): cost N x depth, and no round-off from repeated shifts.
+    Taken straight from each node's particles (cost N x depth, a few
+    operations each): the extent b is then exact, not a bound from the
+    children.
     """
     for k in numba.prange(start.size):
         s = start[k]
@@ -195,67 +190,68 @@ def node_data(start, end, x, y, z, q, rad, use_radii, out):
         cy = 0.5 * (y0 + y1)
         cz = 0.5 * (z0 + z1)
         b2 = 0.0
-        qq = 0.0
-        dx_ = 0.0
-        dy_ = 0.0
-        dz_ = 0.0
-        mxx = 0.0
-        mxy = 0.0
-        mxz = 0.0
-        myy = 0.0
-        myz = 0.0
-        mzz = 0.0
         rmax = 0.0
-        o = np.zeros(10)
         for j in range(s, e):
             sx = x[j] - cx
             sy = y[j] - cy
             sz = z[j] - cz
-            s2 = sx * sx + sy * sy + sz * sz
-            b2 = max(b2, s2)
-            qj = q[j]
-            qq += qj
-            dx_ += qj * sx
-            dy_ += qj * sy
-            dz_ += qj * sz
-            mxx += qj * (3.0 * sx * sx - s2)
-            mxy += qj * (3.0 * sx * sy)
-            mxz += qj * (3.0 * sx * sz)
-            myy += qj * (3.0 * sy * sy - s2)
-            myz += qj * (3.0 * sy * sz)
-            mzz += qj * (3.0 * sz * sz - s2)
-            t = 3.0 * qj * s2
-            u = 15.0 * qj
-            o[0] += u * sx * sx * sx - 3.0 * t * sx
-            o[1] += u * sx * sx * sy - t * sy
-            o[2] += u * sx * sx * sz - t * sz
-            o[3] += u * sx * sy * sy - t * sx
-            o[4] += u * sx * sy * sz
-            o[5] += u * sx * sz * sz - t * sx
-            o[6] += u * sy * sy * sy - 3.0 * t * sy
-            o[7] += u * sy * sy * sz - t * sz
-            o[8] += u * sy * sz * sz - t * sy
-            o[9] += u * sz * sz * sz - 3.0 * t * sz
+            b2 = max(b2, sx * sx + sy * sy + sz * sz)
             if use_radii:
                 rmax = max(rmax, rad[j])
         out[k, 0] = cx
         out[k, 1] = cy
         out[k, 2] = cz
         out[k, 3] = np.sqrt(b2)
-        out[k, 4] = qq
-        out[k, 5] = dx_
-        out[k, 6] = dy_
-        out[k, 7] = dz_
-        out[k, 8] = mxx
-        out[k, 9] = mxy
-        out[k, 10] = mxz
-        out[k, 11] = myy
-        out[k, 12] = myz
-        out[k, 13] = mzz
-        out[k, 14] = rmax
-        out[k, 15] = e - s
-        for c in range(10):
-            out[k, 16 + c] = o[c]
+        out[k, 4] = rmax
+        out[k, 5] = e - s
+
+
+@numba.njit(parallel=True, cache=True)
+def leaf_moments(start, end, nchild, nd, x, y, z, q, parent, axis, raw):
+    """Raw moments A_m = sum q_j s_j^m of every leaf about its centre (P2M), in ``raw``."""
+    ncomp = raw.shape[1]
+    for k in numba.prange(start.size):
+        if nchild[k] != 0:
+            continue
+        mono = np.empty(ncomp)
+        acc = np.zeros(ncomp)
+        cx = nd[k, 0]
+        cy = nd[k, 1]
+        cz = nd[k, 2]
+        for j in range(start[k], end[k]):
+            sv = (x[j] - cx, y[j] - cy, z[j] - cz)
+            mono[0] = q[j]
+            for c in range(1, ncomp):
+                mono[c] = mono[parent[c]] * sv[axis[c]]
+            for c in range(ncomp):
+                acc[c] += mono[c]
+        for c in range(ncomp):
+            raw[k, c] = acc[c]
+
+
+@numba.njit(cache=True)
+def upward_moments(first, nchild, nd, raw, parent, axis, shift_idx, shift_coef):
+    """Raw moments of inner nodes from their children's (M2M), bottom up.
+
+    Children are stored after their parent, so one pass over the nodes from
+    the last to the first sees every child before its parent. The shift is
+    the binomial theorem: A'_m = sum_{k <= m} C(m, k) A_k d^(m - k), d the
+    child's centre minus the parent's.
+    """
+    ncomp = raw.shape[1]
+    dm = np.empty(ncomp)
+    for k in range(nd.shape[0] - 1, -1, -1):
+        if nchild[k] == 0:
+            continue
+        for c in range(ncomp):
+            raw[k, c] = 0.0
+        for ch in range(first[k], first[k] + nchild[k]):
+            dv = (nd[ch, 0] - nd[k, 0], nd[ch, 1] - nd[k, 1], nd[ch, 2] - nd[k, 2])
+            dm[0] = 1.0
+            for c in range(1, ncomp):
+                dm[c] = dm[parent[c]] * dv[axis[c]]
+            for r in range(shift_coef.size):
+                raw[k, shift_idx[r, 0]] += shift_coef[r] * raw[ch, shift_idx[r, 1]] * dm[shift_idx[r, 2]]
 
 
 @numba.njit(cache=True)
@@ -407,111 +403,22 @@ def _near_spheres(xi, yi, zi, ri, sx, sy, sz, sq, sr, a, b):
     return ax, ay, az, p, c
 
 
-@numba.njit(inline="always", fastmath=_FM, error_model="numpy")
-def _far(xi, yi, zi, fb, nf):
-    """Monopole, dipole and quadrupole terms of the far nodes in ``fb``."""
-    # one 1-D view per row: plain unit-stride loads, so the loop vectorises
-    cx = fb[0]
-    cy = fb[1]
-    cz = fb[2]
-    cq = fb[3]
-    cdx = fb[4]
-    cdy = fb[5]
-    cdz = fb[6]
-    mxx = fb[7]
-    mxy = fb[8]
-    mxz = fb[9]
-    myy = fb[10]
-    myz = fb[11]
-    mzz = fb[12]
-    ax = 0.0
-    ay = 0.0
-    az = 0.0
-    p = 0.0
-    for f in range(nf):
-        rx = xi - cx[f]
-        ry = yi - cy[f]
-        rz = zi - cz[f]
-        r2 = rx * rx + ry * ry + rz * rz
-        inv = 1.0 / np.sqrt(r2)
-        inv2 = inv * inv
-        inv3 = inv * inv2
-        inv5 = inv3 * inv2
-        qq = cq[f]
-        dx = cdx[f]
-        dy = cdy[f]
-        dz = cdz[f]
-        mrx = mxx[f] * rx + mxy[f] * ry + mxz[f] * rz
-        mry = mxy[f] * rx + myy[f] * ry + myz[f] * rz
-        mrz = mxz[f] * rx + myz[f] * ry + mzz[f] * rz
-        dr = dx * rx + dy * ry + dz * rz
-        rmr = rx * mrx + ry * mry + rz * mrz
-        s = qq * inv3 + 3.0 * dr * inv5 + 2.5 * rmr * inv5 * inv2
-        ax += s * rx - dx * inv3 - mrx * inv5
-        ay += s * ry - dy * inv3 - mry * inv5
-        az += s * rz - dz * inv3 - mrz * inv5
-        p += qq * inv + dr * inv3 + 0.5 * rmr * inv5
-    return ax, ay, az, p
-
-
-@numba.njit(inline="always", fastmath=_FM, error_model="numpy")
-def _far_octupole(xi, yi, zi, fb, nf):
-    """Octupole terms of the far nodes in ``fb``.
-
-    A loop of its own: with all 23 rows in one loop the registers spill and
-    the sum runs four times slower than the two loops together.
-    """
-    cx = fb[0]
-    cy = fb[1]
-    cz = fb[2]
-    oxxx = fb[13]
-    oxxy = fb[14]
-    oxxz = fb[15]
-    oxyy = fb[16]
-    oxyz = fb[17]
-    oxzz = fb[18]
-    oyyy = fb[19]
-    oyyz = fb[20]
-    oyzz = fb[21]
-    ozzz = fb[22]
-    ax = 0.0
-    ay = 0.0
-    az = 0.0
-    p = 0.0
-    for f in range(nf):
-        rx = xi - cx[f]
-        ry = yi - cy[f]
-        rz = zi - cz[f]
-        r2 = rx * rx + ry * ry + rz * rz
-        inv = 1.0 / np.sqrt(r2)
-        inv2 = inv * inv
-        inv7 = inv2 * inv2 * inv2 * inv
-        xx = rx * rx
-        yy = ry * ry
-        zz = rz * rz
-        xy = 2.0 * rx * ry
-        xz = 2.0 * rx * rz
-        yz = 2.0 * ry * rz
-        orx = oxxx[f] * xx + oxxy[f] * xy + oxxz[f] * xz + oxyy[f] * yy + oxyz[f] * yz + oxzz[f] * zz
-        ory = oxxy[f] * xx + oxyy[f] * xy + oxyz[f] * xz + oyyy[f] * yy + oyyz[f] * yz + oyzz[f] * zz
-        orz = oxxz[f] * xx + oxyz[f] * xy + oxzz[f] * xz + oyyz[f] * yy + oyzz[f] * yz + ozzz[f] * zz
-        t = (rx * orx + ry * ory + rz * orz) * inv7
-        s = (7.0 / 6.0) * t * inv2
-        ax += s * rx - 0.5 * orx * inv7
-        ay += s * ry - 0.5 * ory * inv7
-        az += s * rz - 0.5 * orz * inv7
-        p += t * (1.0 / 6.0)
-    return ax, ay, az, p
-
-
 @numba.njit(cache=True)
-def _lists(nd, first, nchild, gc, g, theta, direct_max, octupole, fb, near, stack):
-    """Interaction lists of target group ``g``: far nodes into ``fb``, near ranges.
+def _lists(nd, mom, first, nchild, gc, g, theta, direct_max, fb, near, mlist, stack):
+    """Interaction lists of target group ``g``.
 
-    A node is taken as a multipole when every point of the group's bounding box is at least
-    b / theta from its centre and no target sphere can overlap a source sphere
-    in it; a leaf that fails is summed exactly. Returns (n_far, n_near, fb,
-    near) (the buffers grow when full).
+    A node goes, in this order of preference,
+    - to the group's local expansion (``mlist``) when (b + r_g) < theta d, d
+      the distance between the node's and the group's centres, b and r_g
+      their radii (the Taylor series of both sides converges with ratio
+      below theta), and no target sphere can overlap a source sphere;
+    - to the per-target multipole list (``fb``) when every point of the
+      group's bounding box is at least b / theta from the node's centre
+      (and no spheres overlap);
+    - to the near list when it is a leaf, or a small node that passes.
+    Otherwise it is opened. Nodes with at most ``direct_max`` particles are
+    summed exactly. Returns (n_far, n_near, n_local, fb, near, mlist) (the
+    buffers grow when full).
     """
     x0 = gc[g, 0]
     y0 = gc[g, 1]
@@ -520,34 +427,45 @@ def _lists(nd, first, nchild, gc, g, theta, direct_max, octupole, fb, near, stac
     y1 = gc[g, 4]
     z1 = gc[g, 5]
     grad = gc[g, 6]
+    gx = 0.5 * (x0 + x1)
+    gy = 0.5 * (y0 + y1)
+    gz = 0.5 * (z0 + z1)
+    rg = 0.5 * np.sqrt((x1 - x0) ** 2 + (y1 - y0) ** 2 + (z1 - z0) ** 2)
     nf = 0
     nl = 0
+    nm = 0
     sp = 1
     stack[0] = 0
     while sp > 0:
         sp -= 1
         k = stack[sp]
-        # distance from the node's centre to the nearest point of the
-        # group's bounding box: the closest any of its targets can be
         cx = nd[k, 0]
         cy = nd[k, 1]
         cz = nd[k, 2]
+        b = nd[k, 3]
+        overlap = max(nd[k, 4], grad)
+        big = nd[k, 5] > direct_max
+        d = np.sqrt((cx - gx) ** 2 + (cy - gy) ** 2 + (cz - gz) ** 2)
+        if big and (b + rg) < theta * d and d - b - rg > overlap:
+            if nm == mlist.size:
+                mlist = _grow(mlist, 2 * nm)
+            mlist[nm] = k
+            nm += 1
+            continue
+        # distance from the node's centre to the nearest point of the
+        # group's bounding box: the closest any of its targets can be
         dx = max(0.0, x0 - cx, cx - x1)
         dy = max(0.0, y0 - cy, cy - y1)
         dz = max(0.0, z0 - cz, cz - z1)
         dmin = np.sqrt(dx * dx + dy * dy + dz * dz)
-        b = nd[k, 3]
-        far = dmin * theta > b and dmin - b > max(nd[k, 14], grad)
-        if far and nd[k, 15] > direct_max:
+        far = dmin * theta > b and dmin - b > overlap
+        if far and big:
             if nf == fb.shape[1]:
                 fb = _grow_rows(fb, 2 * nf, nf)
             for c in range(3):
                 fb[c, nf] = nd[k, c]
-            for c in range(10):
-                fb[3 + c, nf] = nd[k, 4 + c]
-            if octupole:
-                for c in range(10):
-                    fb[13 + c, nf] = nd[k, 16 + c]
+            for c in range(mom.shape[1]):
+                fb[3 + c, nf] = mom[k, c]
             nf += 1
         elif far or nchild[k] == 0:
             if nl == near.size:
@@ -559,12 +477,69 @@ def _lists(nd, first, nchild, gc, g, theta, direct_max, octupole, fb, near, stac
             for c in range(nchild[k] - 1, -1, -1):
                 stack[sp] = c0 + c
                 sp += 1
-    return nf, nl, fb, near
+    return nf, nl, nm, fb, near, mlist
+
+
+@numba.njit(inline="always", fastmath=_FM, error_model="numpy")
+def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef, rows, local_scale, loc):
+    """Local expansion about (gx, gy, gz) of the nodes in ``mlist`` (M2L).
+
+    Vectorised across the nodes: moments gathered into ``am`` (component,
+    node), the derivatives of 1/|R| built by their recurrence in ``dm``, then
+    one dot product over the nodes per translation term.
+    """
+    ncl = loc.size
+    for f in range(nm):
+        k = mlist[f]
+        rx = gx - nd[k, 0]
+        ry = gy - nd[k, 1]
+        rz = gz - nd[k, 2]
+        geo[0, f] = rx
+        geo[1, f] = ry
+        geo[2, f] = rz
+        ir2 = 1.0 / (rx * rx + ry * ry + rz * rz)
+        geo[3, f] = ir2
+        dm[0, f] = np.sqrt(ir2)
+        for c in range(ncl):
+            am[c, f] = mm[k, c]
+    rx = geo[0]
+    ry = geo[1]
+    rz = geo[2]
+    ir2 = geo[3]
+    for c in range(1, ncl):
+        a0 = dm[didx[c, 0]]
+        a1 = dm[didx[c, 1]]
+        a2 = dm[didx[c, 2]]
+        a3 = dm[didx[c, 3]]
+        a4 = dm[didx[c, 4]]
+        a5 = dm[didx[c, 5]]
+        k0 = dcoef[c, 0]
+        k1 = dcoef[c, 1]
+        k2 = dcoef[c, 2]
+        k3 = dcoef[c, 3]
+        k4 = dcoef[c, 4]
+        k5 = dcoef[c, 5]
+        out = dm[c]
+        for f in range(nm):
+            out[f] = (k0 * rx[f] * a0[f] + k1 * ry[f] * a1[f] + k2 * rz[f] * a2[f]
+                      + k3 * a3[f] + k4 * a4[f] + k5 * a5[f]) * ir2[f]
+    for c in range(ncl):
+        loc[c] = 0.0
+    for r in range(rows.shape[0]):
+        an = am[rows[r, 1]]
+        dk = dm[rows[r, 2]]
+        acc = 0.0
+        for f in range(nm):
+            acc += an[f] * dk[f]
+        loc[rows[r, 0]] += acc
+    for c in range(ncl):
+        loc[c] *= local_scale[c]
 
 
 @numba.njit(parallel=True, fastmath=_FM, cache=True, error_model="numpy")
-def evaluate_groups(nstart, nend, first, nchild, nd, sx, sy, sz, sq, sr, use_radii,
-                    tx, ty, tz, tr, self_targets, gstart, gend, gc, theta, direct_max, octupole,
+def evaluate_groups(nstart, nend, first, nchild, nd, mom, mm, sx, sy, sz, sq, sr, use_radii,
+                    tx, ty, tz, tr, self_targets, gstart, gend, gc, theta, direct_max,
+                    didx, dcoef, rows, local_scale, grad_rows, parent, axis,
                     n_blocks, ex, ey, ez, phi, nzero):
     """Field and potential sums at the (Morton-sorted) targets, group by group.
 
@@ -581,8 +556,42 @@ def evaluate_groups(nstart, nend, first, nchild, nd, sx, sy, sz, sq, sr, use_rad
         nb = np.empty((5, 4096), np.float64)
         noff = np.empty(256, np.int64)
         stack = np.empty(8 * 64, np.int64)
+        gx = np.empty(512)
+        gy = np.empty(512)
+        gz = np.empty(512)
+        gi = np.empty(512)
+        ncl = mm.shape[1]
+        mlist = np.empty(256, np.int64)
+        am = np.empty((ncl, 256))
+        dm = np.empty((ncl, 256))
+        geo = np.empty((4, 256))
+        loc = np.empty(ncl)
+        grd = np.empty((3, ncl))
+        tm = np.empty(ncl)
         for g in range(g0, g1):
-            nf, nl, fb, near = _lists(nd, first, nchild, gc, g, theta, direct_max, octupole, fb, near, stack)
+            nf, nl, nm, fb, near, mlist = _lists(nd, mom, first, nchild, gc, g, theta, direct_max, fb, near,
+                                                 mlist, stack)
+            cgx = 0.5 * (gc[g, 0] + gc[g, 3])
+            cgy = 0.5 * (gc[g, 1] + gc[g, 4])
+            cgz = 0.5 * (gc[g, 2] + gc[g, 5])
+            if nm > 0:
+                if am.shape[1] < nm:
+                    am = np.empty((ncl, mlist.size))
+                    dm = np.empty((ncl, mlist.size))
+                    geo = np.empty((4, mlist.size))
+                _local_coefficients(nd, mm, mlist, nm, cgx, cgy, cgz, am, dm, geo, didx, dcoef, rows,
+                                    local_scale, loc)
+                # gradient coefficients: E = -grad sum_k L_k t^k = -sum_j grd[:, j] t^j
+                for a in range(3):
+                    for c in range(ncl):
+                        grd[a, c] = 0.0
+                for r in range(grad_rows.shape[0]):
+                    grd[grad_rows[r, 1], grad_rows[r, 2]] += grad_rows[r, 3] * loc[grad_rows[r, 0]]
+            if gx.size < nf:
+                gx = np.empty(fb.shape[1])
+                gy = np.empty(fb.shape[1])
+                gz = np.empty(fb.shape[1])
+                gi = np.empty(fb.shape[1])
             if noff.size < near.size:
                 noff = np.empty(near.size, np.int64)
             # gather the near particles into one contiguous run: one long
@@ -612,13 +621,26 @@ def evaluate_groups(nstart, nend, first, nchild, nd, sx, sy, sz, sq, sr, use_rad
                 xi = tx[i]
                 yi = ty[i]
                 zi = tz[i]
-                ax, ay, az, p = _far(xi, yi, zi, fb, nf)
-                if octupole:
-                    fx, fy, fz, pp = _far_octupole(xi, yi, zi, fb, nf)
-                    ax += fx
-                    ay += fy
-                    az += fz
-                    p += pp
+                ax, ay, az, p = far_sum(xi, yi, zi, fb, nf, gx, gy, gz, gi)
+                if nm > 0:
+                    # the group's local expansion at t = x_i - c_g (L2P)
+                    tv = (xi - cgx, yi - cgy, zi - cgz)
+                    tm[0] = 1.0
+                    for c in range(1, ncl):
+                        tm[c] = tm[parent[c]] * tv[axis[c]]
+                    lp = 0.0
+                    lx = 0.0
+                    ly = 0.0
+                    lz = 0.0
+                    for c in range(ncl):
+                        lp += loc[c] * tm[c]
+                        lx += grd[0, c] * tm[c]
+                        ly += grd[1, c] * tm[c]
+                        lz += grd[2, c] * tm[c]
+                    ax -= lx
+                    ay -= ly
+                    az -= lz
+                    p += lp
                 if use_radii:
                     ri = tr[i]
                     fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, tot)
@@ -658,3 +680,4 @@ def scatter(perm, ex, ey, ez, phi, field, pot, need_field, need_potential):
             field[k, 2] = ez[i]
         if need_potential:
             pot[k] = phi[i]
+

@@ -45,7 +45,15 @@ import numpy as np
 
 from ..physics.constants import COULOMB_K
 from . import _checks
+from . import _multipoles as _mp
 from . import _tree_kernels as _k
+
+_PARENT, _AXIS = _mp.monomial_table(_mp.LOCAL_ORDER)
+_SHIFT_IDX, _SHIFT_COEF = _mp.shift_table(_mp.LOCAL_ORDER)
+_RAW_TO_STORED_T = np.ascontiguousarray(_mp.raw_to_stored().T)
+_DIDX, _DCOEF = _mp.derivative_table()
+_M2L_ROWS, _MOMENT_SCALE, _LOCAL_SCALE = _mp.m2l_table()
+_GRAD_ROWS = _mp.gradient_table()
 
 #: Options of this method and their defaults: ``accuracy`` is the asked rms
 #: relative error of the field, sqrt(sum|E - E_exact|^2 / sum|E_exact|^2).
@@ -179,8 +187,14 @@ class Tree:
         self._start, self._end, self._first, self._nchild = _k.build_topology(codes, self.leaf_size)
         del codes
         self._nd = np.empty((self._start.size, _k.NODE_COLS))
-        _k.node_data(self._start, self._end, self._x, self._y, self._z, self._q, self._r,
-                     rad is not None, self._nd)
+        _k.node_data(self._start, self._end, self._x, self._y, self._z, self._r, rad is not None, self._nd)
+        raw = np.empty((self._start.size, _PARENT.size))
+        _k.leaf_moments(self._start, self._end, self._nchild, self._nd, self._x, self._y, self._z, self._q,
+                        _PARENT, _AXIS, raw)
+        _k.upward_moments(self._first, self._nchild, self._nd, raw, _PARENT, _AXIS, _SHIFT_IDX, _SHIFT_COEF)
+        self._mom = raw[:, : _mp.NCOMP] @ _RAW_TO_STORED_T
+        self._mm = raw * _MOMENT_SCALE
+        del raw
         self._leaf_start, self._leaf_end = _k.groups(self._start, self._end, self._first, self._nchild,
                                                      GROUP_SIZE)
         self._leaf_geom = np.empty((self._leaf_start.size, 7))
@@ -196,7 +210,7 @@ class Tree:
     def nbytes(self):
         """Bytes held by the tree's arrays (sorted sources, nodes, permutation)."""
         arrs = (self._perm, self._x, self._y, self._z, self._q, self._r, self._start, self._end,
-                self._first, self._nchild, self._nd, self._leaf_start, self._leaf_end, self._leaf_geom)
+                self._first, self._nchild, self._nd, self._mom, self._mm, self._leaf_start, self._leaf_end, self._leaf_geom)
         return int(sum(a.nbytes for a in arrs))
 
     def evaluate(self, targets=None, *, need_field=True, need_potential=True, accuracy=OPTIONS["accuracy"]):
@@ -252,9 +266,10 @@ class Tree:
         old = numba.get_parallel_chunksize()
         numba.set_parallel_chunksize(1)
         try:
-            _k.evaluate_groups(self._start, self._end, self._first, self._nchild, self._nd,
+            _k.evaluate_groups(self._start, self._end, self._first, self._nchild, self._nd, self._mom, self._mm,
                                self._x, self._y, self._z, self._q, self._r, use_radii,
-                               tx, ty, tz, tr, self_targets, gstart, gend, gc, theta, int(DIRECT_MAX), ORDER >= 3,
+                               tx, ty, tz, tr, self_targets, gstart, gend, gc, theta, int(DIRECT_MAX),
+                               _DIDX, _DCOEF, _M2L_ROWS, _LOCAL_SCALE, _GRAD_ROWS, _PARENT, _AXIS,
                                nb, ex, ey, ez, phi, nzero)
         finally:
             numba.set_parallel_chunksize(old)

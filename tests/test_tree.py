@@ -307,18 +307,26 @@ def test_memory_per_particle():
 
 
 def test_target_groups_partition_in_morton_order():
-    # structure: groups are consecutive runs covering every sorted target once,
-    # each within GROUP_SIZE unless it is a single leaf (identical codes)
+    # structure: groups are runs of sibling nodes whose points are consecutive
+    # runs covering every sorted target once, each within GROUP_SIZE unless it
+    # is a single leaf (identical codes)
     rng = _rng(12)
-    for pos in (_uniform(rng, 20_000), _clustered(rng, 20_000)):
+    for kind, pos in (("uniform", _uniform(rng, 20_000)), ("clustered", _clustered(rng, 20_000))):
         t = tree.Tree(pos, _mixed(rng, 20_000))
-        gs, ge = t._leaf_start, t._leaf_end
+        gs, ge = t._start[t._g0], t._end[t._g1 - 1]
+        parent = np.full(t.n_nodes, -1)
+        for k in range(t.n_nodes):
+            for c in range(t._first[k], t._first[k] + t._nchild[k]):
+                parent[c] = k
+        for a, b in zip(t._g0, t._g1):
+            assert b > a and len(set(parent[a:b])) == 1
         assert gs[0] == 0 and ge[-1] == 20_000
         np.testing.assert_array_equal(gs[1:], ge[:-1])
         assert np.all(ge - gs <= tree.GROUP_SIZE)
-        # small siblings are merged: on average groups are over half full
-        # (without merging a uniform cloud of 2e4 gives 512 groups of ~39)
-        assert gs.size < 2 * 20_000 / tree.GROUP_SIZE
+        if kind == "uniform":
+            # small siblings are merged: on average groups are over half full
+            # (without merging a uniform cloud of 2e4 gives 64 groups of ~310)
+            assert gs.size < 2 * 20_000 / tree.GROUP_SIZE
 
 
 def test_radii_with_point_members_and_huge_self_potential():

@@ -51,7 +51,7 @@ LOCAL_ORDER = 6
 
 #: Orders evaluated together in one loop over far nodes (more rows in one
 #: loop spill registers; see the generated file).
-LOOP_ORDERS = ((0, 1, 2), (3,), (4,), (5,))
+LOOP_ORDERS = ((0, 1, 2),) + tuple((n,) for n in range(3, ORDER + 1))
 
 
 def multi_indices(n):

@@ -256,21 +256,27 @@ def upward_moments(first, nchild, nd, raw, parent, axis, shift_idx, shift_coef):
 
 @numba.njit(cache=True)
 def groups(start, end, first, nchild, group_size):
-    """Target groups in Morton order: the largest nodes holding at most
-    ``group_size`` points (or leaves), and runs of consecutive small siblings
-    merged while their total stays within ``group_size`` (a uniform octree
-    level can hold far fewer points than ``group_size``; merged siblings are
-    still one Morton-contiguous, compact run). Returns (gstart, gend)."""
+    """Target groups in Morton order, as ranges of tree nodes.
+
+    A group is the largest node holding at most ``group_size`` points (or a
+    leaf), or a run of consecutive small siblings merged while their total
+    stays within ``group_size`` (a uniform octree level can hold far fewer
+    points than ``group_size``; merged siblings are still one
+    Morton-contiguous, compact run). Returns (g0, g1): group g is the nodes
+    g0[g] .. g1[g] - 1 (siblings, consecutive), their points one contiguous
+    range.
+    """
     gs = np.empty(start.size, np.int64)
     ge = np.empty(start.size, np.int64)
     ng = 0
     stack = np.empty(8 * (MORTON_BITS + 2), np.int64)
     if end[0] - start[0] <= group_size or nchild[0] == 0:
-        gs[0] = start[0]
-        ge[0] = end[0]
+        gs[0] = 0
+        ge[0] = 1
         return gs[:1].copy(), ge[:1].copy()
     stack[0] = 0
     sp = 1
+    big = np.empty(8, np.int64)
     while sp > 0:
         sp -= 1
         k = stack[sp]
@@ -278,71 +284,39 @@ def groups(start, end, first, nchild, group_size):
         c0 = first[k]
         nc = nchild[k]
         run_s = -1
-        run_e = -1
-        big = np.empty(8, np.int64)
+        run_n = 0
         nbig = 0
         for c in range(c0, c0 + nc):
             n_c = end[c] - start[c]
             if n_c <= group_size or nchild[c] == 0:
-                if run_s >= 0 and run_e - run_s + n_c <= group_size:
-                    run_e = end[c]
+                if run_s >= 0 and run_n + n_c <= group_size:
+                    run_n += n_c
                 else:
                     if run_s >= 0:
                         gs[ng] = run_s
-                        ge[ng] = run_e
+                        ge[ng] = c
                         ng += 1
-                    run_s = start[c]
-                    run_e = end[c]
+                    run_s = c
+                    run_n = n_c
             else:
                 if run_s >= 0:
                     gs[ng] = run_s
-                    ge[ng] = run_e
+                    ge[ng] = c
                     ng += 1
                     run_s = -1
                 big[nbig] = c
                 nbig += 1
         if run_s >= 0:
             gs[ng] = run_s
-            ge[ng] = run_e
+            ge[ng] = c0 + nc
             ng += 1
         for b in range(nbig - 1, -1, -1):
             stack[sp] = big[b]
             sp += 1
     # the stack order visits big children after the small runs of their
-    # parent: sort the groups by start so they stay in Morton order
-    o = np.argsort(gs[:ng])
+    # parent: sort the groups by their first point so they stay in Morton order
+    o = np.argsort(start[gs[:ng]])
     return gs[:ng][o].copy(), ge[:ng][o].copy()
-
-
-@numba.njit(parallel=True, cache=True)
-def group_geometry(gstart, gend, x, y, z, rad, use_radii, out):
-    """Per target group: bounding box lower (0-2) and upper (3-5) corner, max radius (6)."""
-    for g in numba.prange(gstart.size):
-        s = gstart[g]
-        e = gend[g]
-        x0 = x[s]
-        x1 = x[s]
-        y0 = y[s]
-        y1 = y[s]
-        z0 = z[s]
-        z1 = z[s]
-        rmax = 0.0
-        for j in range(s, e):
-            x0 = min(x0, x[j])
-            x1 = max(x1, x[j])
-            y0 = min(y0, y[j])
-            y1 = max(y1, y[j])
-            z0 = min(z0, z[j])
-            z1 = max(z1, z[j])
-            if use_radii:
-                rmax = max(rmax, rad[j])
-        out[g, 0] = x0
-        out[g, 1] = y0
-        out[g, 2] = z0
-        out[g, 3] = x1
-        out[g, 4] = y1
-        out[g, 5] = z1
-        out[g, 6] = rmax
 
 
 @numba.njit(inline="always", fastmath=_FM, error_model="numpy")
@@ -403,86 +377,9 @@ def _near_spheres(xi, yi, zi, ri, sx, sy, sz, sq, sr, a, b):
     return ax, ay, az, p, c
 
 
-@numba.njit(cache=True)
-def _lists(nd, mom, first, nchild, gc, g, theta, direct_max, fb, near, mlist, stack):
-    """Interaction lists of target group ``g``.
-
-    A node goes, in this order of preference,
-    - to the group's local expansion (``mlist``) when (b + r_g) < theta d, d
-      the distance between the node's and the group's centres, b and r_g
-      their radii (the Taylor series of both sides converges with ratio
-      below theta), and no target sphere can overlap a source sphere;
-    - to the per-target multipole list (``fb``) when every point of the
-      group's bounding box is at least b / theta from the node's centre
-      (and no spheres overlap);
-    - to the near list when it is a leaf, or a small node that passes.
-    Otherwise it is opened. Nodes with at most ``direct_max`` particles are
-    summed exactly. Returns (n_far, n_near, n_local, fb, near, mlist) (the
-    buffers grow when full).
-    """
-    x0 = gc[g, 0]
-    y0 = gc[g, 1]
-    z0 = gc[g, 2]
-    x1 = gc[g, 3]
-    y1 = gc[g, 4]
-    z1 = gc[g, 5]
-    grad = gc[g, 6]
-    gx = 0.5 * (x0 + x1)
-    gy = 0.5 * (y0 + y1)
-    gz = 0.5 * (z0 + z1)
-    rg = 0.5 * np.sqrt((x1 - x0) ** 2 + (y1 - y0) ** 2 + (z1 - z0) ** 2)
-    nf = 0
-    nl = 0
-    nm = 0
-    sp = 1
-    stack[0] = 0
-    while sp > 0:
-        sp -= 1
-        k = stack[sp]
-        cx = nd[k, 0]
-        cy = nd[k, 1]
-        cz = nd[k, 2]
-        b = nd[k, 3]
-        overlap = max(nd[k, 4], grad)
-        big = nd[k, 5] > direct_max
-        d = np.sqrt((cx - gx) ** 2 + (cy - gy) ** 2 + (cz - gz) ** 2)
-        if big and (b + rg) < theta * d and d - b - rg > overlap:
-            if nm == mlist.size:
-                mlist = _grow(mlist, 2 * nm)
-            mlist[nm] = k
-            nm += 1
-            continue
-        # distance from the node's centre to the nearest point of the
-        # group's bounding box: the closest any of its targets can be
-        dx = max(0.0, x0 - cx, cx - x1)
-        dy = max(0.0, y0 - cy, cy - y1)
-        dz = max(0.0, z0 - cz, cz - z1)
-        dmin = np.sqrt(dx * dx + dy * dy + dz * dz)
-        far = dmin * theta > b and dmin - b > overlap
-        if far and big:
-            if nf == fb.shape[1]:
-                fb = _grow_rows(fb, 2 * nf, nf)
-            for c in range(3):
-                fb[c, nf] = nd[k, c]
-            for c in range(mom.shape[1]):
-                fb[3 + c, nf] = mom[k, c]
-            nf += 1
-        elif far or nchild[k] == 0:
-            if nl == near.size:
-                near = _grow(near, 2 * nl)
-            near[nl] = k
-            nl += 1
-        else:
-            c0 = first[k]
-            for c in range(nchild[k] - 1, -1, -1):
-                stack[sp] = c0 + c
-                sp += 1
-    return nf, nl, nm, fb, near, mlist
-
-
 @numba.njit(inline="always", fastmath=_FM, error_model="numpy")
 def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef, rows, local_scale, loc):
-    """Local expansion about (gx, gy, gz) of the nodes in ``mlist`` (M2L).
+    """Add the local expansion about (gx, gy, gz) of the nodes in ``mlist`` to ``loc`` (M2L).
 
     Vectorised across the nodes: moments gathered into ``am`` (component,
     node), the derivatives of 1/|R| built by their recurrence in ``dm``, then
@@ -523,150 +420,358 @@ def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef,
         for f in range(nm):
             out[f] = (k0 * rx[f] * a0[f] + k1 * ry[f] * a1[f] + k2 * rz[f] * a2[f]
                       + k3 * a3[f] + k4 * a4[f] + k5 * a5[f]) * ir2[f]
-    for c in range(ncl):
-        loc[c] = 0.0
     for r in range(rows.shape[0]):
         an = am[rows[r, 1]]
         dk = dm[rows[r, 2]]
         acc = 0.0
         for f in range(nm):
             acc += an[f] * dk[f]
-        loc[rows[r, 0]] += acc
-    for c in range(ncl):
-        loc[c] *= local_scale[c]
+        loc[rows[r, 0]] += acc * local_scale[rows[r, 0]]
+
+
+@numba.njit(cache=True)
+def _bucket(tag, val, n, nbuckets, off, out):
+    """Counting sort of val[:n] by tag[:n] (stable): bucket b is out[off[b]:off[b+1]]."""
+    for b in range(nbuckets + 1):
+        off[b] = 0
+    for i in range(n):
+        off[tag[i] + 1] += 1
+    for b in range(nbuckets):
+        off[b + 1] += off[b]
+    fill = off[:nbuckets].copy()
+    for i in range(n):
+        out[fill[tag[i]]] = val[i]
+        fill[tag[i]] += 1
+
+
+@numba.njit(cache=True)
+def _push(tag, val, n, t, v):
+    if n == tag.size:
+        tag = _grow(tag, 2 * n)
+        val = _grow(val, 2 * n)
+    tag[n] = t
+    val[n] = v
+    return tag, val, n + 1
+
+
+@numba.njit(cache=True)
+def _traverse(snd, sfirst, snchild, tnd, tfirst, tnchild, tn, ntn, theta, direct_max, pa, pb, lists, counts):
+    """Dual walk of one target group's nodes ``tn[:ntn]`` against the source tree.
+
+    Pairs (target node A, source node B) start at (each top node of the
+    group, source root). A pair goes
+    - to A's local expansion (list 0) when (r_A + b_B) < theta d (d the
+      distance of their centres, r_A and b_B their radii: the Taylor series
+      of 1/|R + t - s| converges with ratio below theta) and no target
+      sphere can overlap a source sphere;
+    - when A is a leaf: to A's multipole list (1) when all of A is at least
+      b_B / theta from B's centre (and no spheres overlap), else to its near
+      list (2) when B is a leaf or a small node, else B is opened;
+    - otherwise the larger of A and B is opened (A when B is a leaf).
+    Nodes of at most ``direct_max`` particles never go to lists 0 and 1.
+    ``pa``, ``pb`` are a stack of pairs (local index of A in ``tn``, B);
+    lists[l] = (tags, nodes) grown as needed. Returns the lists and counts.
+    """
+    tag0, val0 = lists[0]
+    tag1, val1 = lists[1]
+    tag2, val2 = lists[2]
+    n0 = 0
+    n1 = 0
+    n2 = 0
+    sp = 0
+    for a in range(ntn):
+        if counts[a] == -1:  # a top node of the group
+            if sp == pa.size:
+                pa = _grow(pa, 2 * sp)
+                pb = _grow(pb, 2 * sp)
+            pa[sp] = a
+            pb[sp] = 0
+            sp += 1
+    while sp > 0:
+        sp -= 1
+        a = pa[sp]
+        k = pb[sp]
+        ta = tn[a]
+        ra = tnd[ta, 3]
+        bb = snd[k, 3]
+        dx = snd[k, 0] - tnd[ta, 0]
+        dy = snd[k, 1] - tnd[ta, 1]
+        dz = snd[k, 2] - tnd[ta, 2]
+        d = np.sqrt(dx * dx + dy * dy + dz * dz)
+        overlap = max(snd[k, 4], tnd[ta, 4])
+        big = snd[k, 5] > direct_max
+        if big and ra + bb < theta * d and d - ra - bb > overlap:
+            tag0, val0, n0 = _push(tag0, val0, n0, a, k)
+            continue
+        a_leaf = tnchild[ta] == 0
+        b_leaf = snchild[k] == 0
+        if a_leaf:
+            dmin = d - ra
+            far = dmin * theta > bb and dmin - bb > overlap
+            if far and big:
+                tag1, val1, n1 = _push(tag1, val1, n1, a, k)
+                continue
+            if far or b_leaf:
+                tag2, val2, n2 = _push(tag2, val2, n2, a, k)
+                continue
+        if sp + 8 > pa.size:
+            pa = _grow(pa, 2 * pa.size + 8)
+            pb = _grow(pb, 2 * pb.size + 8)
+        if not a_leaf and (b_leaf or ra >= bb):
+            # open A: its children are consecutive in tn from counts[ntn + a]
+            for c in range(tnchild[ta]):
+                pa[sp] = counts[ntn + a] + c
+                pb[sp] = k
+                sp += 1
+        else:
+            c0 = sfirst[k]
+            for c in range(snchild[k] - 1, -1, -1):
+                pa[sp] = a
+                pb[sp] = c0 + c
+                sp += 1
+    return pa, pb, (tag0, val0), (tag1, val1), (tag2, val2), n0, n1, n2
+
+
+@numba.njit(cache=True)
+def _group_nodes(tfirst, tnchild, g0, g1, tn, counts):
+    """The target nodes of a group (top nodes g0..g1-1 and all below), in ``tn``.
+
+    Children of a node are stored consecutively in ``tn``; counts[a] is -1 for
+    a top node, else the local index of its parent; counts[ntn + a] is the
+    local index of a's first child. Returns (tn, counts, ntn).
+    """
+    ntn = 0
+    for k in range(g0, g1):
+        if ntn == tn.size:
+            tn = _grow(tn, 2 * ntn)
+        tn[ntn] = k
+        ntn += 1
+    head = 0
+    par = np.empty(tn.size, np.int64)
+    fc = np.empty(tn.size, np.int64)
+    for a in range(ntn):
+        par[a] = -1
+    while head < ntn:
+        k = tn[head]
+        fc[head] = ntn
+        nc = tnchild[k]
+        if ntn + nc > tn.size:
+            tn = _grow(tn, 2 * (ntn + nc))
+            par = _grow(par, tn.size)
+            fc = _grow(fc, tn.size)
+        for c in range(nc):
+            tn[ntn] = tfirst[k] + c
+            par[ntn] = head
+            ntn += 1
+        head += 1
+    if counts.size < 2 * ntn:
+        counts = np.empty(2 * tn.size, np.int64)
+    for a in range(ntn):
+        counts[a] = par[a]
+        counts[ntn + a] = fc[a]
+    return tn, counts, ntn
 
 
 @numba.njit(parallel=True, fastmath=_FM, cache=True, error_model="numpy")
-def evaluate_groups(nstart, nend, first, nchild, nd, mom, mm, sx, sy, sz, sq, sr, use_radii,
-                    tx, ty, tz, tr, self_targets, gstart, gend, gc, theta, direct_max,
-                    didx, dcoef, rows, local_scale, grad_rows, parent, axis,
-                    n_blocks, ex, ey, ez, phi, nzero):
+def evaluate_fmm(sstart, send, sfirst, snchild, snd, mom, mm, sx, sy, sz, sq, sr, use_radii,
+                 tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0s, g1s,
+                 theta, direct_max, didx, dcoef, rows, local_scale, grad_rows, shift_idx, shift_coef,
+                 parent, axis, n_blocks, ex, ey, ez, phi, nzero):
     """Field and potential sums at the (Morton-sorted) targets, group by group.
 
-    ``self_targets``: targets are the sorted sources themselves; the self pair
-    is skipped by index (spheres) or by its zero distance (points, counted in
-    ``nzero`` like any other coincidence).
+    For each target group: the dual walk (:func:`_traverse`) gives each of
+    its target nodes a list of source nodes for its local expansion (M2L,
+    vectorised across the nodes), and each of its target leaves a list of
+    multipoles evaluated per target and a list of near leaves summed
+    exactly. Local expansions are shifted down the group's nodes (L2L) and
+    evaluated at the targets (L2P). ``self_targets``: targets are the sorted
+    sources; the self pair is skipped by its zero distance (points, counted
+    in ``nzero``) or its exact zero field (spheres).
     """
-    ng = gstart.size
+    ng = g0s.size
+    ncl = mm.shape[1]
     for blk in numba.prange(n_blocks):
-        g0 = (blk * ng) // n_blocks
-        g1 = ((blk + 1) * ng) // n_blocks
+        ga = (blk * ng) // n_blocks
+        gb = ((blk + 1) * ng) // n_blocks
         fb = np.empty((_FAR_ROWS, 512), np.float64)
-        near = np.empty(256, np.int64)
         nb = np.empty((5, 4096), np.float64)
-        noff = np.empty(256, np.int64)
-        stack = np.empty(8 * 64, np.int64)
+        pa = np.empty(1024, np.int64)
+        pb = np.empty(1024, np.int64)
+        lists = ((np.empty(1024, np.int64), np.empty(1024, np.int64)),
+                 (np.empty(1024, np.int64), np.empty(1024, np.int64)),
+                 (np.empty(1024, np.int64), np.empty(1024, np.int64)))
+        tn = np.empty(64, np.int64)
+        counts = np.empty(128, np.int64)
+        srt = np.empty(1024, np.int64)
+        srt1 = np.empty(1024, np.int64)
+        srt2 = np.empty(1024, np.int64)
+        off = np.empty(65, np.int64)
+        o1 = np.empty(65, np.int64)
+        o2 = np.empty(65, np.int64)
         gx = np.empty(512)
         gy = np.empty(512)
         gz = np.empty(512)
         gi = np.empty(512)
-        ncl = mm.shape[1]
-        mlist = np.empty(256, np.int64)
         am = np.empty((ncl, 256))
         dm = np.empty((ncl, 256))
         geo = np.empty((4, 256))
-        loc = np.empty(ncl)
+        loc = np.empty((64, ncl))
+        has = np.empty(64, np.bool_)
         grd = np.empty((3, ncl))
         tm = np.empty(ncl)
-        for g in range(g0, g1):
-            nf, nl, nm, fb, near, mlist = _lists(nd, mom, first, nchild, gc, g, theta, direct_max, fb, near,
-                                                 mlist, stack)
-            cgx = 0.5 * (gc[g, 0] + gc[g, 3])
-            cgy = 0.5 * (gc[g, 1] + gc[g, 4])
-            cgz = 0.5 * (gc[g, 2] + gc[g, 5])
-            if nm > 0:
-                if am.shape[1] < nm:
-                    am = np.empty((ncl, mlist.size))
-                    dm = np.empty((ncl, mlist.size))
-                    geo = np.empty((4, mlist.size))
-                _local_coefficients(nd, mm, mlist, nm, cgx, cgy, cgz, am, dm, geo, didx, dcoef, rows,
-                                    local_scale, loc)
-                # gradient coefficients: E = -grad sum_k L_k t^k = -sum_j grd[:, j] t^j
-                for a in range(3):
+        dmono = np.empty(ncl)
+        for g in range(ga, gb):
+            tn, counts, ntn = _group_nodes(tfirst, tnchild, g0s[g], g1s[g], tn, counts)
+            pa, pb, l0, l1, l2, n0, n1, n2 = _traverse(snd, sfirst, snchild, tnd, tfirst, tnchild, tn, ntn,
+                                                        theta, direct_max, pa, pb, lists, counts)
+            lists = (l0, l1, l2)
+            if loc.shape[0] < ntn:
+                loc = np.empty((tn.size, ncl))
+                has = np.empty(tn.size, np.bool_)
+            if off.size < ntn + 1:
+                off = np.empty(tn.size + 1, np.int64)
+            if srt.size < n0:
+                srt = np.empty(2 * n0, np.int64)
+            # M2L: per target node, its source nodes in one vectorised batch
+            for a in range(ntn):
+                has[a] = False
+                for c in range(ncl):
+                    loc[a, c] = 0.0
+            if n0 > 0:
+                _bucket(l0[0], l0[1], n0, ntn, off, srt)
+                for a in range(ntn):
+                    cnt = off[a + 1] - off[a]
+                    if cnt == 0:
+                        continue
+                    if am.shape[1] < cnt:
+                        am = np.empty((ncl, 2 * cnt))
+                        dm = np.empty((ncl, 2 * cnt))
+                        geo = np.empty((4, 2 * cnt))
+                    ta = tn[a]
+                    _local_coefficients(snd, mm, srt[off[a]:off[a + 1]], cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2],
+                                        am, dm, geo, didx, dcoef, rows, local_scale, loc[a])
+                    has[a] = True
+            # L2L: parents come before their children in tn
+            for a in range(ntn):
+                pa_ = counts[a]
+                if pa_ < 0 or not has[pa_]:
+                    continue
+                ta = tn[a]
+                tp = tn[pa_]
+                dv = (tnd[ta, 0] - tnd[tp, 0], tnd[ta, 1] - tnd[tp, 1], tnd[ta, 2] - tnd[tp, 2])
+                dmono[0] = 1.0
+                for c in range(1, ncl):
+                    dmono[c] = dmono[parent[c]] * dv[axis[c]]
+                # L'_k = sum_{m >= k} C(m, k) L_m d^(m - k)
+                for r in range(shift_coef.size):
+                    loc[a, shift_idx[r, 1]] += shift_coef[r] * loc[pa_, shift_idx[r, 0]] * dmono[shift_idx[r, 2]]
+                has[a] = True
+            # per-target-leaf multipole (1) and near (2) lists
+            if srt1.size < n1:
+                srt1 = np.empty(2 * n1, np.int64)
+            if srt2.size < n2:
+                srt2 = np.empty(2 * n2, np.int64)
+            if o1.size < ntn + 1:
+                o1 = np.empty(2 * ntn + 1, np.int64)
+                o2 = np.empty(2 * ntn + 1, np.int64)
+            _bucket(l1[0], l1[1], n1, ntn, o1, srt1)
+            _bucket(l2[0], l2[1], n2, ntn, o2, srt2)
+            for a in range(ntn):
+                ta = tn[a]
+                if tnchild[ta] != 0:
+                    continue
+                # multipoles of this leaf into fb
+                nf = 0
+                for u in range(o1[a], o1[a + 1]):
+                    k = srt1[u]
+                    if nf == fb.shape[1]:
+                        fb = _grow_rows(fb, 2 * nf, nf)
+                    for c in range(3):
+                        fb[c, nf] = snd[k, c]
+                    for c in range(mom.shape[1]):
+                        fb[3 + c, nf] = mom[k, c]
+                    nf += 1
+                if gx.size < nf:
+                    gx = np.empty(fb.shape[1])
+                    gy = np.empty(fb.shape[1])
+                    gz = np.empty(fb.shape[1])
+                    gi = np.empty(fb.shape[1])
+                # near particles gathered into one contiguous run
+                tot = 0
+                for u in range(o2[a], o2[a + 1]):
+                    k = srt2[u]
+                    s0 = sstart[k]
+                    s1 = send[k]
+                    if tot + (s1 - s0) > nb.shape[1]:
+                        nb = _grow_rows(nb, max(2 * nb.shape[1], tot + (s1 - s0)), tot)
+                    for j in range(s0, s1):
+                        nb[0, tot] = sx[j]
+                        nb[1, tot] = sy[j]
+                        nb[2, tot] = sz[j]
+                        nb[3, tot] = sq[j]
+                        if use_radii:
+                            nb[4, tot] = sr[j]
+                        tot += 1
+                bx = nb[0]
+                by = nb[1]
+                bz = nb[2]
+                bq = nb[3]
+                br = nb[4]
+                use_loc = has[a]
+                if use_loc:
                     for c in range(ncl):
-                        grd[a, c] = 0.0
-                for r in range(grad_rows.shape[0]):
-                    grd[grad_rows[r, 1], grad_rows[r, 2]] += grad_rows[r, 3] * loc[grad_rows[r, 0]]
-            if gx.size < nf:
-                gx = np.empty(fb.shape[1])
-                gy = np.empty(fb.shape[1])
-                gz = np.empty(fb.shape[1])
-                gi = np.empty(fb.shape[1])
-            if noff.size < near.size:
-                noff = np.empty(near.size, np.int64)
-            # gather the near particles into one contiguous run: one long
-            # vectorised loop per target instead of many short ones
-            tot = 0
-            for m in range(nl):
-                k = near[m]
-                a = nstart[k]
-                b = nend[k]
-                noff[m] = tot
-                if tot + (b - a) > nb.shape[1]:
-                    nb = _grow_rows(nb, max(2 * nb.shape[1], tot + (b - a)), tot)
-                for j in range(a, b):
-                    nb[0, tot] = sx[j]
-                    nb[1, tot] = sy[j]
-                    nb[2, tot] = sz[j]
-                    nb[3, tot] = sq[j]
+                        grd[0, c] = 0.0
+                        grd[1, c] = 0.0
+                        grd[2, c] = 0.0
+                    for r in range(grad_rows.shape[0]):
+                        grd[grad_rows[r, 1], grad_rows[r, 2]] += grad_rows[r, 3] * loc[a, grad_rows[r, 0]]
+                cax = tnd[ta, 0]
+                cay = tnd[ta, 1]
+                caz = tnd[ta, 2]
+                for i in range(tstart[ta], tend[ta]):
+                    xi = tx[i]
+                    yi = ty[i]
+                    zi = tz[i]
+                    ax, ay, az, p = far_sum(xi, yi, zi, fb, nf, gx, gy, gz, gi)
+                    if use_loc:
+                        tv = (xi - cax, yi - cay, zi - caz)
+                        tm[0] = 1.0
+                        for c in range(1, ncl):
+                            tm[c] = tm[parent[c]] * tv[axis[c]]
+                        lp = 0.0
+                        lx = 0.0
+                        ly = 0.0
+                        lz = 0.0
+                        for c in range(ncl):
+                            lp += loc[a, c] * tm[c]
+                            lx += grd[0, c] * tm[c]
+                            ly += grd[1, c] * tm[c]
+                            lz += grd[2, c] * tm[c]
+                        ax -= lx
+                        ay -= ly
+                        az -= lz
+                        p += lp
                     if use_radii:
-                        nb[4, tot] = sr[j]
-                    tot += 1
-            bx = nb[0]
-            by = nb[1]
-            bz = nb[2]
-            bq = nb[3]
-            br = nb[4]
-            for i in range(gstart[g], gend[g]):
-                xi = tx[i]
-                yi = ty[i]
-                zi = tz[i]
-                ax, ay, az, p = far_sum(xi, yi, zi, fb, nf, gx, gy, gz, gi)
-                if nm > 0:
-                    # the group's local expansion at t = x_i - c_g (L2P)
-                    tv = (xi - cgx, yi - cgy, zi - cgz)
-                    tm[0] = 1.0
-                    for c in range(1, ncl):
-                        tm[c] = tm[parent[c]] * tv[axis[c]]
-                    lp = 0.0
-                    lx = 0.0
-                    ly = 0.0
-                    lz = 0.0
-                    for c in range(ncl):
-                        lp += loc[c] * tm[c]
-                        lx += grd[0, c] * tm[c]
-                        ly += grd[1, c] * tm[c]
-                        lz += grd[2, c] * tm[c]
-                    ax -= lx
-                    ay -= ly
-                    az -= lz
-                    p += lp
-                if use_radii:
-                    ri = tr[i]
-                    fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, tot)
-                    if self_targets:
-                        # the self pair is in the sum (i's own leaf is near):
-                        # at r = 0 it adds exactly zero field, and the
-                        # uniformly charged sphere's own potential 3 q / (2 R),
-                        # taken out here; with R = 0 it was counted as a
-                        # coincidence instead. One loop instead of two split
-                        # at i: the split loops ran 1.6x slower. (Coincident
-                        # distinct spheres are legitimate and stay summed.)
-                        if ri > 0.0:
-                            pp -= 1.5 * sq[i] / ri
-                        else:
-                            c -= 1
-                else:
-                    fx, fy, fz, pp, c = _near_points(xi, yi, zi, bx, by, bz, bq, 0, tot)
-                ax += fx
-                ay += fy
-                az += fz
-                p += pp
-                ex[i] = ax
-                ey[i] = ay
-                ez[i] = az
-                phi[i] = p
-                nzero[i] = c
+                        ri = tr[i]
+                        fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, tot)
+                        if self_targets:
+                            # the self pair is in the sum (i's own leaf is near):
+                            # at r = 0 it adds exactly zero field, and the
+                            # uniformly charged sphere's own potential 3 q / (2 R),
+                            # taken out here; with R = 0 it was counted as a
+                            # coincidence instead. (Coincident distinct spheres
+                            # are legitimate and stay summed.)
+                            if ri > 0.0:
+                                pp -= 1.5 * sq[i] / ri
+                            else:
+                                c -= 1
+                    else:
+                        fx, fy, fz, pp, c = _near_points(xi, yi, zi, bx, by, bz, bq, 0, tot)
+                    ex[i] = ax + fx
+                    ey[i] = ay + fy
+                    ez[i] = az + fz
+                    phi[i] = p + pp
+                    nzero[i] = c
 
 
 @numba.njit(parallel=True, cache=True)

@@ -1,44 +1,49 @@
-"""Tree evaluator: Barnes–Hut with octupole expansions for large open systems.
+"""Tree evaluator for large open systems: a fast multipole method on a Morton octree.
 
 Sources are sorted along a Morton (Z-order) curve and cut into an octree whose
-leaves hold at most ``LEAF_SIZE`` particles. Each node carries its monopole,
-dipole, traceless quadrupole and traceless octupole moments about its
-*geometric* centre (the centre of the bounding box of its particles; a
-charge-weighted centre can lie anywhere when mixed-sign charges cancel) and
-its extent b (largest distance of one of its particles from that centre).
+leaves hold at most ``LEAF_SIZE`` particles. Each node carries its multipole
+moments to order 5 (symmetric trace-free) and raw Cartesian moments to order
+6 about its *geometric* centre (the centre of the bounding box of its
+particles; a charge-weighted centre can lie anywhere when mixed-sign charges
+cancel), and its extent b (largest distance of one of its particles from that
+centre). Moments come from the particles at the leaves and are shifted up
+the tree (P2M, M2M); the formulas are in :mod:`chargesim.coulomb._multipoles`.
 
-Targets are sorted by Morton code too and evaluated in groups of neighbouring
-targets (the largest nodes of the targets' own octree holding at most
-``GROUP_SIZE`` of them, consecutive small siblings merged up to that size):
-one walk of the source tree per group gives its
-interaction lists (its near particles gathered into one contiguous run),
-which every target of the group then sums in vectorised loops, in the same
-fixed order whatever the thread count.
+Targets are sorted by Morton code too (the sources themselves, or an octree
+of their own) and handled in groups of neighbouring targets (the largest
+target nodes holding at most ``GROUP_SIZE`` of them, consecutive small
+siblings merged), one group at a time per thread, in a fixed order whatever
+the thread count. For each group a dual walk pairs its target nodes A with
+source nodes B:
 
-Opening criterion. A node is used as a multipole for a group when every
-point of the group's bounding box (so every target of the group) is at
-distance d >= b / theta from the node's centre
-(and no target sphere can overlap a source sphere of the node). For one
-source at distance <= b from the centre the remainder of the Legendre series
-after order p = 3 is bounded by (b/d)^(p+1) / (d - b); summed over the node
-the truncation error of the field is of order
+- **local expansion** (M2L) when (r_A + b_B) < theta d, d the distance of
+  the two centres and r_A, b_B their radii: the Taylor series of
+  1/|R + t - s| about both centres converges with ratio below theta; it is
+  kept to total order 6 and the field error of a pair falls as theta^6.
+  Local expansions are shifted down to the group's leaves (L2L) and
+  evaluated at each target (L2P);
+- at a target leaf, **multipole** (M2P, order 5, error ~ (b_B / d_min)^6)
+  when every point of the leaf's sphere is at least b_B / theta from B's
+  centre;
+- else **near**: B's particles summed exactly at each target of the leaf
+  (finite radii: the uniformly-charged-sphere kernel of the direct sum,
+  a = max(R_i, R_j)); nodes with at most ``DIRECT_MAX`` particles always;
+- otherwise the larger of A and B is opened.
 
-    |dE| <~ A / d^2 * theta^(p+1) / (1 - theta)^2,   A = sum_j |q_j|,
+No pair is accepted where a target sphere could overlap a source sphere.
 
-(Salmon & Warren 1994 give the precise constant; from memory). So the error
-falls as theta^4, and theta is set from the asked rms relative accuracy as
-``theta = THETA_REF * (accuracy / 1e-3) ** THETA_EXPONENT`` (1/4.5: the
-measured error falls somewhat faster than the bound). The worst-case bound is
-far above the typical error (contributions of many nodes add with random
-signs), so ``THETA_REF`` is calibrated: the tests check the measured rms
-relative field error against the direct sum, for uniform and clustered
-mixed-sign and one-sign charges, at 1e-2, 1e-3 and 1e-4. Nodes with at most
-``DIRECT_MAX`` particles and all leaves that fail the criterion are summed
-exactly (finite radii: the uniformly-charged-sphere kernel of the direct
-sum, a = max(R_i, R_j)).
+Accuracy. The worst-case bounds of both expansions (Salmon & Warren 1994 for
+the multipole one; from memory) lie far above the typical error, since the
+contributions of many nodes add with random signs, so theta is set from the
+asked rms relative field error as
+``theta = THETA_REF * (accuracy / 1e-3) ** THETA_EXPONENT`` with constants
+calibrated on measured errors: the tests check the measured rms relative
+field error against the direct sum, for uniform and clustered mixed-sign and
+one-sign charges, at 1e-2, 1e-3 and 1e-4.
 
-Memory: about 200 bytes per particle (sorted copies, permutations, nodes,
-sorted results); no N x N array, per-thread interaction buffers only.
+Memory: about 150-250 bytes per particle (sorted copies, permutation, node
+geometry and moments, results); no N x N array, per-thread interaction
+buffers only.
 """
 import numba
 import numpy as np
@@ -68,35 +73,29 @@ OPTIONS = {"accuracy": 1e-3}
 #: tree is faster in every run.
 CROSSOVER = 1000
 
-#: Most particles in a leaf of the source tree.
+#: Most particles in a leaf of the source tree (leaves of a uniform cloud
+#: then hold ~8-64, mean ~30). Measured on 1e5 uniform mixed-sign charges at
+#: equal error (~7e-5), single thread: leaves of 64 took 1.7 s, 128 1.9 s,
+#: 96 2.1 s, 32 1.9 s; 16 took 6 s (too many M2L translations).
 LEAF_SIZE = 64
-#: Most targets in a group that shares one walk of the tree (the largest
-#: tree nodes below this size, runs of small siblings merged up to it: in a
-#: uniform cloud one octree level often holds only ~25 points, and 4x fewer
-#: walks pay more than the slightly larger group boxes cost).
-GROUP_SIZE = 128
+#: Most targets in a group that shares one dual walk. Within a group the walk
+#: descends the target nodes, so a group can be large; 1024 keeps the walks
+#: from the root few (1e5 uniform: 128 took 1.9 s, 512 1.9 s, 1024 1.7 s).
+GROUP_SIZE = 1024
 #: Nodes with at most this many particles are summed exactly even when far:
-#: a few direct pairs cost less than one multipole evaluation.
-DIRECT_MAX = 4
-#: Opening angle at accuracy 1e-3 (calibrated, see the module docstring:
-#: with leaves of 64 and merged groups of 128, measured rms errors on 1e5
-#: mixed-sign charges, 1000 sampled particles, seeds 1-3 of
-#: benchmarks/bench_tree.py's sets: uniform 1.4-3.4e-4, clustered 0.9-4.7e-4
-#: at 1e-3; at 1e-4 at most 0.29 x accuracy, at 1e-2 (theta clipped to 0.75)
-#: at most 0.43 x. At 0.44 the worst clustered set reached 0.56 x: the
-#: error grows faster than theta^4 there, so 0.42 keeps a 2x margin.)
-THETA_REF = 0.42
+#: a few direct pairs cost less than one expansion.
+DIRECT_MAX = 8
+#: Opening angle at accuracy 1e-3, calibrated: measured rms field errors on
+#: 1e5 mixed-sign charges (benchmarks/bench_tree.py's sets, 500 sampled
+#: particles), theta 0.4 / 0.45 / 0.55 / 0.65 / 0.75: clustered 4.3e-5 /
+#: 8.3e-5 / 3.3e-4 / 1.1e-3 / 2.7e-3, uniform - / 6.6e-5 / 2.0e-4 / 7.5e-4
+#: / -. At 0.55 the worse (clustered) set sits at 0.33 x the asked 1e-3.
+THETA_REF = 0.55
 #: theta = THETA_REF * (accuracy / 1e-3) ** THETA_EXPONENT: the measured
-#: error falls faster than the theta^(ORDER+1) of the bound (at 1e-4 with
-#: 1/4 it sat at <= 0.29 x accuracy), so the step is 1/4.5: same sets as
-#: THETA_REF, at 1e-4 (theta 0.252) uniform 0.16-0.37 x, clustered
-#: 0.08-0.45 x; at 1e-2 (theta 0.70) at most 0.25 x.
-THETA_EXPONENT = 1.0 / 4.5
-#: Expansion order, 2 (quadrupole) or 3 (octupole): the error falls as
-#: theta ** (ORDER + 1); at equal error the octupole is the faster.
-ORDER = 3
+#: error falls as theta^5.5 - theta^7 over that range.
+THETA_EXPONENT = 1.0 / 6.5
 #: Range of the opening angle: below 0.1 the tree degenerates into the direct
-#: sum, above 0.75 the expansion converges too slowly to be controlled.
+#: sum, above 0.75 the expansions converge too slowly to be controlled.
 THETA_RANGE = (0.1, 0.75)
 
 
@@ -195,11 +194,7 @@ class Tree:
         self._mom = raw[:, : _mp.NCOMP] @ _RAW_TO_STORED_T
         self._mm = raw * _MOMENT_SCALE
         del raw
-        self._leaf_start, self._leaf_end = _k.groups(self._start, self._end, self._first, self._nchild,
-                                                     GROUP_SIZE)
-        self._leaf_geom = np.empty((self._leaf_start.size, 7))
-        _k.group_geometry(self._leaf_start, self._leaf_end, self._x, self._y, self._z, self._r,
-                          rad is not None, self._leaf_geom)
+        self._g0, self._g1 = _k.groups(self._start, self._end, self._first, self._nchild, GROUP_SIZE)
 
     @property
     def n_nodes(self):
@@ -210,7 +205,7 @@ class Tree:
     def nbytes(self):
         """Bytes held by the tree's arrays (sorted sources, nodes, permutation)."""
         arrs = (self._perm, self._x, self._y, self._z, self._q, self._r, self._start, self._end,
-                self._first, self._nchild, self._nd, self._mom, self._mm, self._leaf_start, self._leaf_end, self._leaf_geom)
+                self._first, self._nchild, self._nd, self._mom, self._mm, self._g0, self._g1)
         return int(sum(a.nbytes for a in arrs))
 
     def evaluate(self, targets=None, *, need_field=True, need_potential=True, accuracy=OPTIONS["accuracy"]):
@@ -238,7 +233,8 @@ class Tree:
         if self_targets:
             tx, ty, tz, tr = self._x, self._y, self._z, self._r
             tperm = self._perm
-            gstart, gend, gc = self._leaf_start, self._leaf_end, self._leaf_geom
+            tstart, tend, tfirst, tnchild, tnd = self._start, self._end, self._first, self._nchild, self._nd
+            g0, g1 = self._g0, self._g1
         else:
             tgt = _checks.as_points(targets, "targets")
             m = tgt.shape[0]
@@ -251,26 +247,26 @@ class Tree:
             tz = np.ascontiguousarray(z[tperm])
             del x, y, z
             tr = np.zeros(m) if use_radii else np.zeros(0)
-            s, e, fc, nch = _k.build_topology(tcodes, self.leaf_size)
+            tstart, tend, tfirst, tnchild = _k.build_topology(tcodes, self.leaf_size)
             del tcodes
-            gstart, gend = _k.groups(s, e, fc, nch, GROUP_SIZE)
-            gc = np.empty((gstart.size, 7))
-            _k.group_geometry(gstart, gend, tx, ty, tz, tr, False, gc)
+            tnd = np.empty((tstart.size, _k.NODE_COLS))
+            _k.node_data(tstart, tend, tx, ty, tz, tr, False, tnd)
+            g0, g1 = _k.groups(tstart, tend, tfirst, tnchild, GROUP_SIZE)
         m = tx.size
         ex = np.empty(m)
         ey = np.empty(m)
         ez = np.empty(m)
         phi = np.empty(m)
         nzero = np.empty(m, np.int64)
-        nb = _n_blocks(gstart.size)
+        nb = _n_blocks(g0.size)
         old = numba.get_parallel_chunksize()
         numba.set_parallel_chunksize(1)
         try:
-            _k.evaluate_groups(self._start, self._end, self._first, self._nchild, self._nd, self._mom, self._mm,
-                               self._x, self._y, self._z, self._q, self._r, use_radii,
-                               tx, ty, tz, tr, self_targets, gstart, gend, gc, theta, int(DIRECT_MAX),
-                               _DIDX, _DCOEF, _M2L_ROWS, _LOCAL_SCALE, _GRAD_ROWS, _PARENT, _AXIS,
-                               nb, ex, ey, ez, phi, nzero)
+            _k.evaluate_fmm(self._start, self._end, self._first, self._nchild, self._nd, self._mom, self._mm,
+                            self._x, self._y, self._z, self._q, self._r, use_radii,
+                            tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0, g1,
+                            theta, int(DIRECT_MAX), _DIDX, _DCOEF, _M2L_ROWS, _LOCAL_SCALE, _GRAD_ROWS,
+                            _SHIFT_IDX, _SHIFT_COEF, _PARENT, _AXIS, nb, ex, ey, ez, phi, nzero)
         finally:
             numba.set_parallel_chunksize(old)
         allowed = 1 if (self_targets and not use_radii) else 0

@@ -206,6 +206,15 @@ def node_data(start, end, x, y, z, rad, use_radii, out):
         out[k, 5] = e - s
 
 
+@numba.njit(inline="always")
+def _monomials(vx, vy, vz, scale, parent, axis, out):
+    """out[c] = scale * v^m_c for every component m_c (each from a lower one)."""
+    v = (vx, vy, vz)
+    out[0] = scale
+    for c in range(1, out.size):
+        out[c] = out[parent[c]] * v[axis[c]]
+
+
 @numba.njit(parallel=True, cache=True)
 def leaf_moments(start, end, nchild, nd, x, y, z, q, parent, axis, raw):
     """Raw moments A_m = sum q_j s_j^m of every leaf about its centre (P2M), in ``raw``."""
@@ -219,10 +228,7 @@ def leaf_moments(start, end, nchild, nd, x, y, z, q, parent, axis, raw):
         cy = nd[k, 1]
         cz = nd[k, 2]
         for j in range(start[k], end[k]):
-            sv = (x[j] - cx, y[j] - cy, z[j] - cz)
-            mono[0] = q[j]
-            for c in range(1, ncomp):
-                mono[c] = mono[parent[c]] * sv[axis[c]]
+            _monomials(x[j] - cx, y[j] - cy, z[j] - cz, q[j], parent, axis, mono)
             for c in range(ncomp):
                 acc[c] += mono[c]
         for c in range(ncomp):
@@ -246,10 +252,7 @@ def upward_moments(first, nchild, nd, raw, parent, axis, shift_idx, shift_coef):
         for c in range(ncomp):
             raw[k, c] = 0.0
         for ch in range(first[k], first[k] + nchild[k]):
-            dv = (nd[ch, 0] - nd[k, 0], nd[ch, 1] - nd[k, 1], nd[ch, 2] - nd[k, 2])
-            dm[0] = 1.0
-            for c in range(1, ncomp):
-                dm[c] = dm[parent[c]] * dv[axis[c]]
+            _monomials(nd[ch, 0] - nd[k, 0], nd[ch, 1] - nd[k, 1], nd[ch, 2] - nd[k, 2], 1.0, parent, axis, dm)
             for r in range(shift_coef.size):
                 raw[k, shift_idx[r, 0]] += shift_coef[r] * raw[ch, shift_idx[r, 1]] * dm[shift_idx[r, 2]]
 
@@ -658,10 +661,8 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mom, mm, sx, sy, sz, sq, sr
                     continue
                 ta = tn[a]
                 tp = tn[pa_]
-                dv = (tnd[ta, 0] - tnd[tp, 0], tnd[ta, 1] - tnd[tp, 1], tnd[ta, 2] - tnd[tp, 2])
-                dmono[0] = 1.0
-                for c in range(1, ncl):
-                    dmono[c] = dmono[parent[c]] * dv[axis[c]]
+                _monomials(tnd[ta, 0] - tnd[tp, 0], tnd[ta, 1] - tnd[tp, 1], tnd[ta, 2] - tnd[tp, 2], 1.0,
+                           parent, axis, dmono)
                 # L'_k = sum_{m >= k} C(m, k) L_m d^(m - k)
                 for r in range(shift_coef.size):
                     loc[a, shift_idx[r, 1]] += shift_coef[r] * loc[pa_, shift_idx[r, 0]] * dmono[shift_idx[r, 2]]
@@ -734,10 +735,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mom, mm, sx, sy, sz, sq, sr
                     zi = tz[i]
                     ax, ay, az, p = far_sum(xi, yi, zi, fb, nf, gx, gy, gz, gi)
                     if use_loc:
-                        tv = (xi - cax, yi - cay, zi - caz)
-                        tm[0] = 1.0
-                        for c in range(1, ncl):
-                            tm[c] = tm[parent[c]] * tv[axis[c]]
+                        _monomials(xi - cax, yi - cay, zi - caz, 1.0, parent, axis, tm)
                         lp = 0.0
                         lx = 0.0
                         ly = 0.0

@@ -109,7 +109,7 @@ def main():
     print(f"{'no recorder':<28}{tb:>10.3f}{1.0:>8.3f}")
     print(f"{'HDF5 writer':<28}{tr:>10.3f}{tr / tb:>8.3f}")
     print(f"{'  in the writer calls':<28}{ti:>10.3f}{ti / tb:>8.3f}")
-    print(f"{'  checkpoint thread (hidden)':<28}{tw:>10.3f}{tw / tb:>8.3f}")
+    print(f"{'  writer thread (overlapped)':<28}{tw:>10.3f}{tw / tb:>8.3f}")
     print(f"output overhead: {100 * (tr - tb) / tb:.1f} % of the run time "
           f"(time inside the writer calls: {100 * ti / tr:.1f} % of the recorded run; goal <= 5 %)")
     print(f"file size {size / 1e6:.1f} MB (raw frame data {frames * raw_frame / 1e6:.1f} MB); "

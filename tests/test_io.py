@@ -268,3 +268,83 @@ def test_field_validation(tmp_path):
     r = open_results(str(tmp_path / "f.h5"))
     assert r.finished and r.field_names == ["g"] and r.seed is None and len(r.frames) == 0
     _check_xdmf(str(tmp_path / "f.xdmf"))
+
+
+def _held_writer(path):
+    """A started writer whose thread stops before its first append until released."""
+    import threading
+
+    w = ResultsWriter(path, scenario_text="held", seed=1)
+    w.start({})
+    gate = threading.Event()
+    inner = w._append
+
+    def _append(ds, data, at):
+        gate.wait(timeout=60)
+        return inner(ds, data, at)
+    w._append = _append  # the writer thread looks it up on the instance
+    return w, gate
+
+
+def test_records_are_copied_when_handed_in(tmp_path):
+    # the thread writes later; what the run changes meanwhile must not show
+    p = str(tmp_path / "copy.h5")
+    w, gate = _held_writer(p)
+    s = ParticleState()
+    s.add(np.zeros((5, 3)), diameter=1e-6, density=1000.0, charge=-1e-16)
+    w.frame(0, 0.0, s)
+    snap = {"x": np.arange(4.0)}
+    w.checkpoint(snap)
+    s.position[:] = 7.0
+    snap["x"][:] = -1.0
+    gate.set()
+    w.close()
+    snap_back, meta = load_checkpoint(p + ".checkpoint")
+    np.testing.assert_array_equal(snap_back["x"], np.arange(4.0))
+    assert meta["counts"]["frames"] == 1 and meta["counts"]["frame_rows"] == 5
+    r = open_results(p)
+    np.testing.assert_array_equal(r.frames[0]["position"], np.zeros((5, 3)))
+
+
+def test_writer_thread_error_reaches_the_run(tmp_path):
+    p = str(tmp_path / "fail.h5")
+    w = ResultsWriter(p, scenario_text="fail", seed=1)
+    w.start({})
+
+    def _append(ds, data, at):
+        raise OSError("disk full (simulated)")
+    w._append = _append
+    s = ParticleState()
+    s.add(np.zeros((3, 3)), diameter=1e-6, density=1000.0, charge=-1e-16)
+    w.frame(0, 0.0, s)
+    with pytest.raises(OSError, match="disk full"):
+        w.close()  # waits for the thread, which failed
+    with pytest.raises(OSError, match="disk full"):
+        w.finish({"emitted_mass": 1.0})  # never marked finished after lost records
+    assert not os.path.exists(p) and os.path.exists(p + ".partial")
+
+
+def test_writer_thread_error_stops_later_calls(tmp_path):
+    import threading
+    import time
+
+    p = str(tmp_path / "stop.h5")
+    w = ResultsWriter(p, scenario_text="stop", seed=1)
+    w.start({})
+    failed = threading.Event()
+
+    def _append(ds, data, at):
+        failed.set()
+        raise OSError("disk full (simulated)")
+    w._append = _append
+    s = ParticleState()
+    s.add(np.zeros((3, 3)), diameter=1e-6, density=1000.0, charge=-1e-16)
+    w.frame(0, 0.0, s)
+    assert failed.wait(timeout=60)
+    for _ in range(6000):  # the thread stores the error right after the raise
+        if w._error is not None:
+            break
+        time.sleep(0.01)
+    with pytest.raises(OSError, match="disk full"):
+        w.frame(1, 0.1, s)
+    w.close()  # already reported: closes quietly

@@ -117,51 +117,16 @@ def save_checkpoint(path, snapshot, meta=None):
     meta : dict, optional
         JSON-serialisable extras (the writer stores its row counts here).
     """
-    commit_checkpoint(write_checkpoint_temp(path, snapshot, meta), path)
-
-
-def write_checkpoint_temp(path, snapshot, meta=None):
-    """First half of :func:`save_checkpoint`: write ``path + ".tmp"`` (no fsync).
-
-    Parameters
-    ----------
-    path : str or os.PathLike
-        Checkpoint file the temp file will replace.
-    snapshot : dict
-        The nested state (see the module docstring for the types allowed).
-    meta : dict, optional
-        JSON-serialisable extras.
-
-    Returns
-    -------
-    str
-        The temp file's path, for :func:`commit_checkpoint`.
-    """
     if not isinstance(snapshot, dict):
         raise ValueError(f"snapshot must be a dict, got {type(snapshot).__name__}")
-    tmp = os.fspath(path) + ".tmp"
+    path = os.fspath(path)
+    tmp = path + ".tmp"
     with h5py.File(tmp, "w") as f:
         f.attrs["format"] = CHECKPOINT_FORMAT
         f.attrs["format_version"] = FORMAT_VERSION
         f.attrs["meta"] = json.dumps(meta or {})
         _put(f, "snapshot", snapshot)
         f.flush()
-    return tmp
-
-
-def commit_checkpoint(tmp, path):
-    """Second half of :func:`save_checkpoint`: fsync ``tmp``, rename it onto
-    ``path`` (atomic), fsync the directory. Only waits for the disk, so the
-    results writer runs it on a background thread.
-
-    Parameters
-    ----------
-    tmp : str
-        Temp file from :func:`write_checkpoint_temp`.
-    path : str or os.PathLike
-        Checkpoint file to (re)place.
-    """
-    path = os.fspath(path)
     with open(tmp, "rb+") as fh:
         os.fsync(fh.fileno())
     os.replace(tmp, path)

@@ -4,40 +4,50 @@ Crash safety (why it holds): the run writes into ``PATH.partial`` opened in
 HDF5's single-writer/multiple-reader (SWMR) mode. Every dataset the run
 appends to is created, resizable and chunked, before SWMR starts; SWMR then
 orders its writes so that the file on disk is a consistent HDF5 file at every
-moment (raw data before the metadata that points at it). After each frame,
-each batch of deposits or escapes, and each diagnostics row the writer calls
-``flush``; a killed process loses nothing the operating system already has,
-so SIGKILL keeps every flushed record. Within one frame the particle rows are
+moment (raw data before the metadata that points at it). After each frame
+the writer calls ``flush``, and held deposits, escapes and diagnostics rows
+are written in that flush or at the latest ``flush_interval`` later; a killed
+process loses nothing the operating system already has, so SIGKILL keeps
+every flushed record. Within one frame the particle rows are
 written before the frame's index row, and readers count a frame (or an
 event) only when all its rows are visible, so a half-written frame is never
 read. Checkpoints go to their own file, atomically (temp + fsync + rename),
 after the partial file is flushed and fsync'ed, so a checkpoint never counts
 a record that is not on disk.
 
-Only the waiting is done in the background: a checkpoint flushes the partial
-file and writes its temp file on the caller's thread, then one thread fsyncs
-the partial file, fsyncs the temp file, renames it and fsyncs the directory
-while the run goes on. Why this split (measured, ``benchmarks/bench_io.py``):
-the fsyncs were a third of the output time and release the GIL, whereas
-h5py holds the GIL for much of its own work, so HDF5 writes on a second
-thread slowed the run more than they saved. The next checkpoint, ``finish``
-and ``close`` wait for that thread first (one temp file at a time; nothing
-is finished before its last checkpoint is), and an error in it is raised by
-the next recorder call. What the files hold never depends on the thread's
-timing: the checkpoint's contents are fixed before it starts. ``finish`` writes ``/final`` and ``/summary``
-last (outside SWMR), renames the partial file onto ``PATH`` and writes the
-XDMF sidecar: a file under the final name is always a finished one.
+All HDF5 work on the partial file and the checkpoints during the run is done
+by one background thread, in the order of the recorder calls. Why (measured
+in ``benchmarks/bench_io.py``): the fsyncs wait for the disk, and h5py
+releases the GIL inside the large dataset writes and the flushes, so the run
+goes on meanwhile; h5py's small calls do hold the GIL, so the calls hand
+over few, large items: a frame (its columns copied, since the run changes
+the state) with the events held since the last hand-over, a checkpoint (its
+snapshot copied) with them, or the held events alone after
+``flush_interval``. A checkpoint is an item of the same queue, so every
+record handed in before it is written, flushed and fsync'ed before the
+checkpoint file is written, and the counts it stores are the thread's own.
+The file's contents depend only on the order of the calls, never on timing.
+An error in the thread is raised by the next call (``finish`` and ``close``
+wait for the thread and raise it too). A SIGKILL loses what is still queued,
+as it loses the events not yet flushed: at most ``_QUEUE_BYTES`` of copies.
+
+``finish`` waits for the thread, writes ``/final`` and ``/summary`` last
+(outside SWMR), renames the partial file onto ``PATH`` and writes the XDMF
+sidecar: a file under the final name is always a finished one.
 
 A killed partial file keeps HDF5's "open for writing" mark: h5py opens it
 with ``h5py.File(p, "r", swmr=True)``; :func:`chargesim.io.open_results`
 does that for you; resume rebuilds it.
 """
+import atexit
 import datetime
 import json
 import os
+import queue
 import threading
 import time as _time
 import warnings
+import weakref
 
 import h5py
 import numpy as np
@@ -45,11 +55,26 @@ from h5py import h5s
 
 from .._version import __version__
 from . import schema as S
-from .checkpoint import commit_checkpoint, write_checkpoint_temp
+from .checkpoint import save_checkpoint
 
 _FRAME_CHUNK = 16384
 _EVENT_CHUNK = 4096
 _DIAG_CHUNK = 1024
+#: Most bytes of copied records waiting for the writer thread (an item larger
+#: than this still goes, alone): the run waits rather than fill the memory
+#: when the disk is slower than the run.
+_QUEUE_BYTES = 256 * 2**20
+_STOP = object()
+#: Writers whose thread runs: closed at interpreter exit, so a run that forgot
+#: ``close`` still gets its queued records written (as it did before there was
+#: a thread: h5py flushes open files at exit).
+_LIVE = weakref.WeakSet()
+
+
+@atexit.register
+def _close_live_writers():
+    for w in list(_LIVE):
+        w.close()
 
 
 def _now():
@@ -112,21 +137,24 @@ class ResultsWriter:
         dominate the output overhead; the integer and repeated columns
         compress ~100x and keep ``compression``.
     flush_interval : float
-        Longest wall-clock time, s, that deposit, escape and diagnostics
-        records wait in memory before they are written and flushed (they are
-        also flushed with every frame, checkpoint and at the end; frames are
-        flushed at once). 0 flushes every call; measured, an HDF5 flush costs
+        Longest wall-clock time, s, between hand-overs of deposit, escape
+        and diagnostics records to the writer thread, which writes and
+        flushes them (they also go with every frame, checkpoint and at the
+        end; frames are handed over at once). Measured at the recorder
+        calls. 0 hands over every call; measured, an HDF5 flush costs
         milliseconds, which per step would exceed the output budget.
 
     Attributes
     ----------
     background_seconds : float
-        Wall time, s, the checkpoint thread has spent on fsyncs and renames
-        (time the run did not wait for).
+        Wall time, s, the writer thread has spent writing so far (frames,
+        events, flushes, fsyncs, checkpoints), overlapped with the run.
 
     Notes
     -----
-    The full layout is in ``docs/results-format.md``.
+    The full layout is in ``docs/results-format.md``. From ``start`` on, a
+    background thread does the writing, in call order (see the module
+    docstring); ``finish`` or ``close`` waits for it.
     """
 
     def __init__(self, path, *, scenario_text, seed, overwrite=False, compression="gzip",
@@ -149,14 +177,23 @@ class ResultsWriter:
         self._diag_width = 0
         self._info = {}
         self._dsets = {}
+        # events and diagnostics rows wait here (run's thread) and go to the
+        # writer thread in one piece with the next frame or checkpoint, or
+        # after flush_interval: one queue item per event call cost ~1.7 ms each
+        # in hand-overs between the threads (measured)
+        self._held = {"deposits": [], "escapes": [], "diagnostics": []}
         self._pending = {"deposits": [], "escapes": [], "diagnostics": []}
         self.flush_interval = float(flush_interval)
         if not (self.flush_interval >= 0):
             raise ValueError(f"flush_interval must be >= 0 s, got {flush_interval!r}")
-        self._last_flush = _time.monotonic()
+        self._last_hand_over = _time.monotonic()
         self.background_seconds = 0.0
-        self._commit = None
+        self._queue = queue.Queue()
+        self._queued_bytes = 0
+        self._room = threading.Condition()
+        self._thread = None
         self._error = None
+        self._error_raised = False
         if _reopen:
             self._reopen_swmr()
             return
@@ -195,6 +232,7 @@ class ResultsWriter:
         self._f = f
         self._started = True
         self._resumed = True
+        self._start_thread()
 
     def _rows(self, group, name, dtype, shape, units, chunk, ckw=None):
         if dtype == "name":
@@ -329,6 +367,57 @@ class ResultsWriter:
         self._f = f
         self._info = json.loads(f.attrs["run_info"])
         self._started = True
+        self._start_thread()
+
+    # -- the writer thread ----------------------------------------------------------
+    def _start_thread(self):
+        self._thread = threading.Thread(target=self._work, name=f"chargesim writer {os.path.basename(self.path)}",
+                                        daemon=True)  # never keeps the interpreter alive; _LIVE drains it at exit
+        _LIVE.add(self)
+        self._thread.start()
+
+    def _submit(self, fn, *args, nbytes=0):
+        """Queue ``fn(*args)`` for the writer thread (waits while the queue is full)."""
+        self._raise_error()
+        with self._room:
+            while self._queued_bytes and self._queued_bytes + nbytes > _QUEUE_BYTES and self._error is None:
+                self._room.wait()
+            self._raise_error()  # the thread may have failed while this call waited
+            self._queued_bytes += nbytes
+        self._queue.put((fn, args, nbytes))
+
+    def _work(self):
+        """The writer thread: run the queued items in order."""
+        while True:
+            item = self._queue.get()
+            if item is _STOP:
+                return
+            fn, args, nbytes = item
+            if self._error is None:  # after an error the rest is dropped: the run is failing
+                t = _time.perf_counter()
+                try:
+                    fn(*args)
+                except BaseException as exc:  # noqa: BLE001 - handed to the run's thread
+                    self._error = exc
+                self.background_seconds += _time.perf_counter() - t
+            with self._room:
+                self._queued_bytes -= nbytes
+                self._room.notify_all()
+
+    def _raise_error(self):
+        if self._error is not None:
+            self._error_raised = True
+            raise self._error
+
+    def _stop_thread(self):
+        """Write what is queued, flush, end the thread; raise its error if any."""
+        if self._thread is None:
+            return
+        self._queue.put((self._take_over, (self._hand_over(),), 0))
+        self._queue.put(_STOP)
+        self._thread.join()
+        self._thread = None
+        _LIVE.discard(self)
 
     def _append(self, ds, data, at):
         data = np.require(data, dtype=ds.dtype, requirements="C")
@@ -365,12 +454,21 @@ class ResultsWriter:
         self._need()
         alive = np.asarray(state.alive, dtype=bool)
         sel = None if alive.all() else alive
+        cols = {}
+        for name, (dt, _shp, _u) in S.FRAME_SCHEMA.items():
+            arr = np.asarray(getattr(state, name))
+            # a copy: the run changes the state while the thread writes it
+            cols[name] = np.array(arr, dtype=dt, order="C") if sel is None else np.ascontiguousarray(arr[sel], dtype=dt)
+        self._submit(self._write_frame, int(step), float(time), cols, self._hand_over(),
+                     nbytes=sum(c.nbytes for c in cols.values()))
+
+    def _write_frame(self, step, time, cols, held):
+        self._take_over(held, flush=False)
         at = self._counts["frame_rows"]
-        k = int(alive.sum())
+        k = cols["id"].shape[0]
         g = self._handles("frames")
         for name in S.FRAME_SCHEMA:
-            arr = np.asarray(getattr(state, name))
-            self._append(g[name], arr if sel is None else arr[sel], at)
+            self._append(g[name], cols[name], at)
         i = self._counts["frames"]
         # the index row last: a frame counts once its rows are all there
         for name, value in (("step", step), ("time", time), ("offset", at), ("count", k)):
@@ -399,8 +497,26 @@ class ResultsWriter:
             if v.shape != (n,) + shp:
                 raise ValueError(f"{group} records: {name} has shape {v.shape}, expected {(n,) + shp}")
             batch[name] = v
-        self._pending[key].append(batch)
-        self._maybe_flush()
+        self._hold(key, batch)
+
+    def _hold(self, key, batch):
+        """Keep a batch of rows; hand the held rows over once ``flush_interval`` has passed."""
+        self._held[key].append(batch)
+        if _time.monotonic() - self._last_hand_over >= self.flush_interval:
+            self._submit(self._take_over, self._hand_over())
+
+    def _hand_over(self):
+        """The held batches, for the writer thread (the run's thread starts new lists)."""
+        held, self._held = self._held, {key: [] for key in self._held}
+        self._last_hand_over = _time.monotonic()
+        return held
+
+    def _take_over(self, held, flush=True):
+        """Writer thread: queue handed-over batches for writing; write and flush them."""
+        for key, batches in held.items():
+            self._pending[key].extend(batches)
+        if flush:
+            self._flush()
 
     def deposits(self, records):
         """Record deposits (dict of arrays with the ``EVENT_FIELDS`` keys)."""
@@ -423,7 +539,6 @@ class ResultsWriter:
             Scalars, SI (units from ``info["diagnostics"]`` or by name).
         """
         self._need()
-        g = self._handles("diagnostics")
         row = np.full(self._diag_width, np.nan)
         for k, v in values.items():
             col = self._diag_cols.get(k)
@@ -432,13 +547,17 @@ class ResultsWriter:
                 if col >= self._diag_width:
                     raise ValueError(f"more than {self._diag_width} diagnostics names; declare them in "
                                      f"info['diagnostics'] (got {k!r})")
-                g["names"][col] = _encode_names([k], "diagnostics name")[0]
-                g["units"][col] = _encode_names([S.guess_unit(k)], "diagnostics unit")[0]
+                self._submit(self._name_column, col, _encode_names([k], "diagnostics name")[0],
+                             _encode_names([S.guess_unit(k)], "diagnostics unit")[0])
                 self._diag_cols[k] = col
             row[col] = float(v)
-        self._pending["diagnostics"].append({"values": row[None, :], "time": np.array([float(time)]),
-                                             "step": np.array([int(step)], dtype=np.int64)})
-        self._maybe_flush()
+        self._hold("diagnostics", {"values": row[None, :], "time": np.array([float(time)]),
+                                   "step": np.array([int(step)], dtype=np.int64)})
+
+    def _name_column(self, col, name, unit):
+        g = self._handles("diagnostics")
+        g["names"][col] = name
+        g["units"][col] = unit
 
     def _drain(self):
         """Write the buffered events and diagnostics rows (no flush)."""
@@ -460,11 +579,6 @@ class ResultsWriter:
     def _flush(self):
         self._drain()
         self._f.flush()
-        self._last_flush = _time.monotonic()
-
-    def _maybe_flush(self):
-        if _time.monotonic() - self._last_flush >= self.flush_interval:
-            self._flush()
 
     def checkpoint(self, snapshot):
         """Save the loop's snapshot beside the file, atomically.
@@ -475,32 +589,15 @@ class ResultsWriter:
             Nested state from ``Simulation.snapshot()``.
         """
         self._need()
-        self._wait_commit()  # one temp file at a time, and checkpoints renamed in order
-        self._flush()  # what the checkpoint counts is handed to the OS ...
+        snapshot = _detach(snapshot)  # the thread saves it later: what the run does meanwhile must not show
+        self._submit(self._write_checkpoint, snapshot, self._hand_over(), nbytes=_nbytes(snapshot))
+
+    def _write_checkpoint(self, snapshot, held):
+        """Writer thread: every record handed in before the checkpoint is written by now."""
+        self._take_over(held)
+        _fsync_path(self.partial_path)  # the records the checkpoint counts are on disk first
         meta = {"counts": dict(self._counts), "scenario_sha256": _sha(self.scenario_text), "saved": _now()}
-        tmp = write_checkpoint_temp(self.checkpoint_path, snapshot, meta)
-        self._commit = threading.Thread(target=self._commit_checkpoint, args=(tmp,),
-                                        name=f"chargesim checkpoint {os.path.basename(self.path)}")
-        self._commit.start()
-
-    def _commit_checkpoint(self, tmp):
-        """Background thread: only fsyncs and a rename, which release the GIL."""
-        t = _time.perf_counter()
-        try:
-            _fsync_path(self.partial_path)  # ... and is on disk before the checkpoint is in place
-            commit_checkpoint(tmp, self.checkpoint_path)
-        except BaseException as exc:  # noqa: BLE001 - raised on the run's thread by _wait_commit
-            self._error = exc
-        self.background_seconds += _time.perf_counter() - t
-
-    def _wait_commit(self):
-        """Wait for the checkpoint thread; raise its error (once) if it failed."""
-        if self._commit is not None:
-            self._commit.join()
-            self._commit = None
-        exc, self._error = self._error, None  # no race: the thread has ended
-        if exc is not None:
-            raise exc
+        save_checkpoint(self.checkpoint_path, snapshot, meta)
 
     def finish(self, summary):
         """Write ``/final`` and ``/summary``, rename onto the final name, write XDMF.
@@ -517,12 +614,9 @@ class ResultsWriter:
         summary = dict(summary or {})
         state = summary.pop("state", None)
         final = summary.pop("final", None)
-        self._wait_commit()
-        if self._f is not None:
-            self._flush()
-            self._f.close()
-            self._f = None
-            self._dsets = {}
+        self.close()
+        if self._error is not None:  # raised before: records are missing, never mark this file finished
+            raise self._error
         with h5py.File(self.partial_path, "r+", libver="latest") as f:
             for item in self._pending_fields:
                 self._store_field(f, *item)
@@ -540,18 +634,17 @@ class ResultsWriter:
         self._finished = True
 
     def close(self):
-        """Close the partial file without finishing (it stays resumable)."""
+        """Write what is queued, close the partial file without finishing (it
+        stays resumable); raise an error of the writer thread not raised yet."""
         try:
-            self._wait_commit()
+            self._stop_thread()
         finally:
-            self._close_file()
-
-    def _close_file(self):
-        if self._f is not None:
-            self._flush()
-            self._f.close()
-            self._f = None
-            self._dsets = {}
+            if self._f is not None:
+                self._f.close()
+                self._f = None
+                self._dsets = {}
+        if not self._error_raised:
+            self._raise_error()
 
     def __enter__(self):
         return self
@@ -563,8 +656,7 @@ class ResultsWriter:
     def _need(self):
         if self._f is None:
             raise RuntimeError("start(info) must be called before recording")
-        if self._error is not None:  # the checkpoint thread failed: stop the run now
-            self._wait_commit()
+        self._raise_error()
 
     def _write_final(self, f, state, final):
         if "frames" not in f:
@@ -609,6 +701,25 @@ class ResultsWriter:
             units[k] = S.SUMMARY_UNITS.get(k, S.guess_unit(k) if isinstance(v, (int, float, np.number)) else "1")
         g.attrs["units"] = json.dumps(units)
         g.attrs["finished"] = _now()
+
+
+def _detach(value):
+    """A copy of a nested snapshot whose arrays share no memory with the run's."""
+    if isinstance(value, dict):
+        return {k: _detach(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return type(value)(_detach(v) for v in value)
+    if isinstance(value, np.ndarray):
+        return value.copy()
+    return value  # numpy scalars and Python scalars are immutable
+
+
+def _nbytes(value):
+    if isinstance(value, dict):
+        return sum(_nbytes(v) for v in value.values())
+    if isinstance(value, (list, tuple)):
+        return sum(_nbytes(v) for v in value)
+    return value.nbytes if isinstance(value, np.ndarray) else 0
 
 
 def _sha(text):

@@ -13,7 +13,10 @@ Writing a run (``writer.py``)
     ``checkpoint``, ``finish``). While the run goes everything lands in
     ``PATH.partial`` (HDF5 SWMR mode; frames flushed at once, events and
     diagnostics within ``flush_interval`` seconds and with every frame and
-    checkpoint) and checkpoints in ``PATH.checkpoint`` (written atomically);
+    checkpoint) and checkpoints in ``PATH.checkpoint`` (written atomically),
+    written by one background thread in call order (the calls copy what they
+    are handed; ``finish`` and ``close`` wait for the thread, whose errors
+    the next call raises; ``writer.background_seconds`` is its busy time);
     ``finish(summary)`` writes ``/final`` and ``/summary`` last, renames
     ``PATH.partial`` -> ``PATH``, writes the XDMF sidecar ``PATH`` with suffix
     ``.xdmf``, and removes the checkpoint. ``/final`` is taken from

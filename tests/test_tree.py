@@ -345,10 +345,3 @@ def test_radii_with_point_members_and_huge_self_potential():
     e, p = tree.evaluate(pos, q, None, radii, accuracy=1e-3)
     assert _err(e, e_ref) <= 1e-3 and _err(p, p_ref) <= 1e-3
 
-
-def test_generated_far_loops_are_current():
-    # the far-field loops are generated from chargesim/coulomb/_multipoles.py;
-    # regenerate with `python -m chargesim.coulomb._multipoles` after changing it
-    from chargesim.coulomb import _multipoles
-
-    assert _multipoles.TARGET.read_text() == _multipoles.generate()

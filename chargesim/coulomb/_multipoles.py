@@ -1,57 +1,37 @@
-"""Cartesian multipole tables of the tree evaluator, and the generator of its far-field loops.
+"""Cartesian expansion tables of the tree evaluator (the fast multipole method).
 
-A node's charges q_j at s_j = x_j - c (c its geometric centre) are expanded in
-symmetric trace-free (STF) Cartesian moments. With T_n = sum_j q_j STF(s_j^n)
-(the trace-free part of the n-fold outer product) the potential at r = x - c,
-|r| > max |s_j|, is the Legendre series written in tensors,
+For charges q_j at s_j = y_j - c_s about a source centre c_s and a target
+x = c_t + t about a target centre c_t, with R = c_t - c_s,
 
-    phi(r) = sum_n (2n - 1)!! / n! * (T_n . r^n) / r^(2n+1),
+    1/|x - y_j| = 1/|R + t - s_j| = sum_m D_m(R) (t - s_j)^m / m!,
 
-since (2n - 1)!!/n! STF(s^n) . r^n = |s|^n |r|^n P_n(cos gamma)
-(Jackson, Classical Electrodynamics, ch. 4; Thorne, Rev. Mod. Phys. 52,
-299 (1980), eq. 2.11; from memory). Differentiating,
+D_m = d^m (1/|R|) / dR^m (multi-indices m = (mx, my, mz), m! = mx! my! mz!).
+Split (t - s)^m / m! = sum_{n + k = m} t^k/k! (-s)^n/n! and keep the terms
+of total order |n| + |k| <= ORDER: the potential of a source node near a
+target node is the polynomial
 
-    E_n(r) = c_n [ (2n + 1) S r / r^(2n+3) - n V / r^(2n+1) ],
-    V_a = (T_n . r^(n-1))_a,   S = r . V = T_n . r^n,   c_n = (2n - 1)!!/n!.
+    phi(c_t + t) = sum_k L_k t^k,   L_k = (1/k!) sum_n Ahat_n D_(n+k)(R),
 
-Components. A symmetric tensor of order n is stored by its distinct
-components, one per multi-index m = (mx, my, mz) with mx + my + mz = n, in the
-order of :func:`multi_indices`; orders 0..p follow one another (``OFFSET``).
-The node moments kept for evaluation are ``W_m = c_n (n-1)!/m! T_m`` (order
-0: the charge), so that ``V_a = sum_{m, m_a >= 1} m_a W_m r^(m - e_a)`` is a
-plain sum of products, and ``S = r . V``.
+with the node's raw moments A_n = sum_j q_j s_j^n and Ahat_n = (-1)^|n|
+A_n / n! (M2L). Raw moments are taken from the particles at the leaves and
+shifted to the parents' centres with the binomial theorem (M2M); local
+expansions are shifted to the children's centres the same way (L2L), and
+evaluated with their gradient at the targets (L2P). The truncation error of
+a pair falls as ((r_t + r_s)/|R|)^(ORDER+1) for the potential, one power less
+for the field (r_t, r_s the radii of the two nodes).
 
-Moments are built from raw moments ``A_m = sum_j q_j s_j^m`` (P2M at leaves,
-then shifted to the parents' centres with the binomial theorem, M2M),
-projected on the trace-free part order by order. The projection is the
-orthogonal projection, in the tensors' full inner product
-``<A, B> = sum_m n!/m! A_m B_m``, onto the kernel of the trace map; it is
-computed here once at import (small dense matrices).
-
-The numba loops that evaluate the far field are generated as source text
-(straight-line code per order, vectorised over far nodes) into
-``_far_terms.py`` by ``python -m chargesim.coulomb._multipoles``; a test keeps
-that file equal to this generator's output.
+Components. Multi-indices of order n are stored in the order of
+:func:`multi_indices`, orders 0..ORDER one after the other. Each table here is
+built once at import, as small integer and float arrays for the numba
+kernels.
 """
 import math
-from pathlib import Path
-
 import numpy as np
 
-#: Expansion order of the tree (highest STF order kept). The error of an
-#: accepted node falls as theta^(ORDER + 1); see chargesim.coulomb.tree for
-#: the measurements behind the choice.
-ORDER = 5
-
-#: Order of the local (Taylor) expansions about target groups: the
-#: translation keeps the terms with |n| + |k| <= LOCAL_ORDER (n the source's
-#: moment, k the local coefficient), the Taylor series of 1/|R + t - s|
-#: truncated at that total order.
-LOCAL_ORDER = 6
-
-#: Orders evaluated together in one loop over far nodes (more rows in one
-#: loop spill registers; see the generated file).
-LOOP_ORDERS = ((0, 1, 2),) + tuple((n,) for n in range(3, ORDER + 1))
+#: Total order of the translations (|n| + |k| <= ORDER): the field error of
+#: an accepted pair falls as theta^ORDER. See chargesim.coulomb.tree for the
+#: measurements behind the choice.
+ORDER = 6
 
 
 def multi_indices(n):
@@ -64,56 +44,12 @@ def n_components(p):
     return (p + 1) * (p + 2) * (p + 3) // 6
 
 
-#: Offset of order n's first component.
-OFFSET = [n_components(n - 1) if n > 0 else 0 for n in range(ORDER + 2)]
-NCOMP = n_components(ORDER)
-_ALL = [m for n in range(LOCAL_ORDER + 1) for m in multi_indices(n)]
+_ALL = [m for n in range(ORDER + 1) for m in multi_indices(n)]
 _INDEX = {m: i for i, m in enumerate(_ALL)}
 
 
 def _fact(m):
     return math.factorial(m[0]) * math.factorial(m[1]) * math.factorial(m[2])
-
-
-def _double_fact(k):
-    return 1 if k <= 0 else k * _double_fact(k - 2)
-
-
-def _stf_projection(n):
-    """Matrix of the trace-free projection on order-n components (raw -> STF)."""
-    ms = multi_indices(n)
-    size = len(ms)
-    if n < 2:
-        return np.eye(size)
-    lower = multi_indices(n - 2)
-    tr = np.zeros((len(lower), size))
-    pos = {m: i for i, m in enumerate(ms)}
-    for r, k in enumerate(lower):
-        for a in range(3):
-            m = list(k)
-            m[a] += 2
-            tr[r, pos[tuple(m)]] += 1.0
-    w_inv = np.diag([_fact(m) / math.factorial(n) for m in ms])
-    g = tr @ w_inv @ tr.T
-    return np.eye(size) - w_inv @ tr.T @ np.linalg.solve(g, tr)
-
-
-def _stored_scale(m):
-    n = sum(m)
-    if n == 0:
-        return 1.0
-    return _double_fact(2 * n - 1) / math.factorial(n) * math.factorial(n - 1) / _fact(m)
-
-
-def raw_to_stored():
-    """(NCOMP, NCOMP) block-diagonal matrix taking raw moments A to stored W."""
-    out = np.zeros((NCOMP, NCOMP))
-    for n in range(ORDER + 1):
-        o = OFFSET[n]
-        ms = multi_indices(n)
-        scale = np.array([_stored_scale(m) for m in ms])
-        out[o : o + len(ms), o : o + len(ms)] = scale[:, None] * _stf_projection(n)
-    return out
 
 
 def _components(p):
@@ -150,7 +86,7 @@ def shift_table(p=ORDER):
     return t[:, :3].copy(), t[:, 3].astype(np.float64)
 
 
-def derivative_table(p=LOCAL_ORDER):
+def derivative_table(p=ORDER):
     """Recurrence of D_m = d^m (1/|R|) / dR^m, |m| <= p, for the local expansions.
 
     With a_m = D_m / m! (the Taylor coefficients of 1/|R + t|),
@@ -189,36 +125,77 @@ def derivative_table(p=LOCAL_ORDER):
     return idx, coef
 
 
-def m2l_table(p=LOCAL_ORDER):
+def m2l_table(p=ORDER):
     """Translation of moments to local coefficients, terms with |n| + |k| <= p.
 
-    phi(c_t + t) = sum_k L_k t^k with L_k = (1/k!) sum_n Ahat_n D_(n+k)(R),
-    Ahat_n = (-1)^|n| A_n / n! (A_n = sum_j q_j s_j^m the raw moments about
-    the source centre, R the target centre minus the source centre): the
-    Taylor series of 1/|R + t - s|, truncated at total order p.
+    phi(c_t + t) = sum_k L_k t^k with L_k = G_k / k!, G_k = sum_n Ahat_n
+    D_(n+k)(R), Ahat_n = (-1)^|n| A_n / n! (A_n = sum_j q_j s_j^m the raw
+    moments about the source centre, R the target centre minus the source
+    centre): the Taylor series of 1/|R + t - s|, truncated at total order p.
+
+    1/|R| is harmonic, so D_(m + 2e_z) = -D_(m + 2e_x) - D_(m + 2e_y). Folding
+    every moment with n_z >= 2 onto n - 2e_z + 2e_x and n - 2e_z + 2e_y leaves
+    the 2j + 1 "reduced" moments of each order j (n_z <= 1) with the same
+    G; and G itself is harmonic (sum_i G_(k + 2e_i) = 0, also after the
+    truncation, whose range of n is the same for the three terms), so only
+    G_k with k_z <= 1 are summed and the others follow from them. For p = 6
+    that is 532 terms instead of 924.
 
     Returns
     -------
     rows : int64 (n_terms, 3)
-        (k, n, n + k) component indices.
+        (k, position of n among the reduced moments, n + k) component indices.
+    fold : float64 (n_reduced, ncomp)
+        Takes Ahat (all components) to the reduced moments.
+    unfold : int64 (n, 3)
+        (k, k - 2e_z + 2e_x, k - 2e_z + 2e_y) for every k with k_z >= 2, in
+        increasing k_z: G_k = -G_a - G_b.
+    deriv : int64
+        Components m > 0 with m_z <= 2 (the derivatives the terms use), in
+        order.
     moment_scale : float64 (ncomp,)
         (-1)^|n| / n!, taking A to Ahat.
     local_scale : float64 (ncomp,)
         1 / k!.
     """
     comps = _components(p)
+    ncomp = len(comps)
+    reduced = [c for c, m in enumerate(comps) if m[2] <= 1]
+    pos = {c: i for i, c in enumerate(reduced)}
+    t = np.eye(ncomp)
+    for c in sorted(range(ncomp), key=lambda c: -comps[c][2]):
+        m = comps[c]
+        if m[2] < 2:
+            continue
+        for a in (0, 1):
+            k = list(m)
+            k[2] -= 2
+            k[a] += 2
+            t[_INDEX[tuple(k)], :] -= t[c, :]
+        t[c, :] = 0.0
+    fold = t[reduced, :]
     rows = []
     for k in comps:
-        for n in comps:
+        if k[2] > 1:
+            continue
+        for c in reduced:
+            n = comps[c]
             if sum(k) + sum(n) <= p:
                 nk = tuple(k[a] + n[a] for a in range(3))
-                rows.append((_INDEX[k], _INDEX[n], _INDEX[nk]))
+                rows.append((_INDEX[k], pos[c], _INDEX[nk]))
+    unfold = []
+    for k in sorted((m for m in comps if m[2] >= 2), key=lambda m: m[2]):
+        ka = (k[0] + 2, k[1], k[2] - 2)
+        kb = (k[0], k[1] + 2, k[2] - 2)
+        unfold.append((_INDEX[k], _INDEX[ka], _INDEX[kb]))
+    deriv = np.array([c for c, m in enumerate(comps) if c > 0 and m[2] <= 2], np.int64)
     moment_scale = np.array([(-1) ** sum(m) / _fact(m) for m in comps])
     local_scale = np.array([1.0 / _fact(m) for m in comps])
-    return np.array(rows, np.int64), moment_scale, local_scale
+    return (np.array(rows, np.int64), fold, np.array(unfold, np.int64).reshape(-1, 3), deriv,
+            moment_scale, local_scale)
 
 
-def gradient_table(p=LOCAL_ORDER):
+def gradient_table(p=ORDER):
     """Terms of the gradient of sum_k L_k t^k: rows (k, axis, index of k - e_axis, k_axis)."""
     rows = []
     for c, m in enumerate(_components(p)):
@@ -228,163 +205,3 @@ def gradient_table(p=LOCAL_ORDER):
                 k[a] -= 1
                 rows.append((c, a, _INDEX[tuple(k)], m[a]))
     return np.array(rows, np.int64)
-
-
-# --------------------------------------------------------------------------
-# generator of _far_terms.py
-
-_HEADER = '''"""Far-field loops of the tree evaluator, generated: do not edit.
-
-Made by ``python -m chargesim.coulomb._multipoles`` from the formulas in
-:mod:`chargesim.coulomb._multipoles` (expansion order {order}). Each loop
-sums, over the far nodes of a buffer ``fb`` (rows: centre x, y, z, then the
-stored moments W of orders 0..{order}, one column per node), the field and
-potential of some orders at one point, vectorised across nodes.
-"""
-import numba
-import numpy as np
-
-ORDER = {order}
-#: Rows of a far-node buffer: the centre and the stored moments.
-ROWS = {rows}
-
-# fast-math without no-NaN/no-inf, as in the direct sum
-_FM = {{"nsz", "arcp", "contract", "afn", "reassoc"}}
-'''
-
-
-def _mono_name(k):
-    return "one" if k == (0, 0, 0) else "m" + "".join(str(v) for v in k)
-
-
-def _w_name(m):
-    return "w" + "".join(str(v) for v in m)
-
-
-def _mono_lines(n_max):
-    """Lines defining the monomials r^k, 1 <= |k| <= n_max, each from a lower one."""
-    lines = []
-    for n in range(1, n_max + 1):
-        for k in multi_indices(n):
-            a = 0 if k[0] else (1 if k[1] else 2)
-            lo = list(k)
-            lo[a] -= 1
-            lo = tuple(lo)
-            r = ("rx", "ry", "rz")[a]
-            lines.append(f"{_mono_name(k)} = {r}" if lo == (0, 0, 0) else f"{_mono_name(k)} = {_mono_name(lo)} * {r}")
-    return lines
-
-
-def _loop_source(orders):
-    name = "_far_" + "".join(str(n) for n in orders)
-    body = []
-    loads = []
-    for n in orders:
-        for m in multi_indices(n):
-            loads.append(f"    {_w_name(m)} = fb[{3 + _INDEX[m]}]")
-    body.append("        rx = gx[f]")
-    body.append("        ry = gy[f]")
-    body.append("        rz = gz[f]")
-    body.append("        inv = gi[f]")
-    body.append("        inv2 = inv * inv")
-    top = max(orders)
-    if top >= 2:
-        body += ["        " + ln for ln in _mono_lines(top - 1)]
-    # inverse odd powers needed: inv^(2n+1)
-    body.append("        ip1 = inv")
-    for n in range(1, top + 2):
-        body.append(f"        ip{2 * n + 1} = ip{2 * n - 1} * inv2")
-    for n in orders:
-        if n == 0:
-            body.append("        q0 = w000[f]")
-            body.append("        g = q0 * ip3")
-            body.append("        ax += g * rx")
-            body.append("        ay += g * ry")
-            body.append("        az += g * rz")
-            body.append("        p += q0 * ip1")
-            continue
-        for a, comp in enumerate(("vx", "vy", "vz")):
-            terms = []
-            for m in multi_indices(n):
-                if m[a] == 0:
-                    continue
-                k = list(m)
-                k[a] -= 1
-                k = tuple(k)
-                w = f"{_w_name(m)}[f]"
-                coef = "" if m[a] == 1 else f"{float(m[a])!r} * "
-                mono = "" if k == (0, 0, 0) else f" * {_mono_name(k)}"
-                terms.append(f"{coef}{w}{mono}")
-            body.append(f"        {comp} = " + " + ".join(terms))
-        body.append("        s = rx * vx + ry * vy + rz * vz")
-        body.append(f"        g = {float(2 * n + 1)!r} * s * ip{2 * n + 3}")
-        body.append(f"        h = {float(n)!r} * ip{2 * n + 1}")
-        body.append("        ax += g * rx - h * vx")
-        body.append("        ay += g * ry - h * vy")
-        body.append("        az += g * rz - h * vz")
-        body.append(f"        p += s * ip{2 * n + 1}")
-    src = [
-        "",
-        "",
-        '@numba.njit(inline="always", fastmath=_FM, error_model="numpy")',
-        f"def {name}(gx, gy, gz, gi, fb, nf):",
-        f'    """Order(s) {", ".join(str(n) for n in orders)} of the far nodes in ``fb`` (geometry in gx..gi)."""',
-        "    # one 1-D view per row: unit-stride loads, so the loop vectorises",
-        *loads,
-        "    ax = 0.0",
-        "    ay = 0.0",
-        "    az = 0.0",
-        "    p = 0.0",
-        "    for f in range(nf):",
-        *body,
-        "    return ax, ay, az, p",
-    ]
-    return name, src
-
-
-def generate():
-    """Source text of ``_far_terms.py``."""
-    out = [_HEADER.format(order=ORDER, rows=3 + NCOMP).rstrip("\n")]
-    names = []
-    for orders in LOOP_ORDERS:
-        name, src = _loop_source(orders)
-        names.append(name)
-        out += src
-    out += [
-        "",
-        "",
-        '@numba.njit(inline="always", fastmath=_FM, error_model="numpy")',
-        "def far_sum(xi, yi, zi, fb, nf, gx, gy, gz, gi):",
-        '    """Field sum (C/m^2) and potential sum (C/m) of the far nodes in ``fb`` at one point.',
-        "",
-        "    gx, gy, gz, gi: scratch arrays of at least nf entries (the point minus each",
-        "    node's centre, and the inverse distance: one square root per node, shared",
-        "    by the loops of all orders).",
-        '    """',
-        "    cx = fb[0]",
-        "    cy = fb[1]",
-        "    cz = fb[2]",
-        "    for f in range(nf):",
-        "        rx = xi - cx[f]",
-        "        ry = yi - cy[f]",
-        "        rz = zi - cz[f]",
-        "        gx[f] = rx",
-        "        gy[f] = ry",
-        "        gz[f] = rz",
-        "        gi[f] = 1.0 / np.sqrt(rx * rx + ry * ry + rz * rz)",
-    ]
-    for i, name in enumerate(names):
-        if i == 0:
-            out.append(f"    ax, ay, az, p = {name}(gx, gy, gz, gi, fb, nf)")
-        else:
-            out.append(f"    bx, by, bz, bp = {name}(gx, gy, gz, gi, fb, nf)")
-            out += ["    ax += bx", "    ay += by", "    az += bz", "    p += bp"]
-    out.append("    return ax, ay, az, p")
-    return "\n".join(out) + "\n"
-
-
-TARGET = Path(__file__).with_name("_far_terms.py")
-
-if __name__ == "__main__":
-    TARGET.write_text(generate())
-    print(f"wrote {TARGET}")

@@ -13,19 +13,14 @@ cols   meaning
 5      number of particles
 =====  ==============================================================
 
-and the node's multipole moments about c in a (n_nodes, NCOMP) array, in the
-stored form of :mod:`chargesim.coulomb._multipoles` (symmetric trace-free
-moments of orders 0..ORDER, scaled so that the generated far-field loops of
-:mod:`chargesim.coulomb._far_terms` are plain sums of products).
+and the node's moments about c in a (n_nodes, n_reduced) array: the
+reduced, scaled raw moments of :func:`chargesim.coulomb._multipoles.m2l_table`.
 
 Every target's sum runs in one thread in a fixed order (the traversal order),
 so results are bitwise reproducible and do not depend on the thread count.
 """
 import numba
 import numpy as np
-
-from ._far_terms import ROWS as _FAR_ROWS
-from ._far_terms import far_sum
 
 NODE_COLS = 6
 #: Bits per axis in the Morton code (3 * 21 = 63 bits fit an int64).
@@ -381,14 +376,16 @@ def _near_spheres(xi, yi, zi, ri, sx, sy, sz, sq, sr, a, b):
 
 
 @numba.njit(inline="always", fastmath=_FM, error_model="numpy")
-def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef, rows, local_scale, loc):
+def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef, deriv, rows, unfold, local_scale,
+                        gk, loc):
     """Add the local expansion about (gx, gy, gz) of the nodes in ``mlist`` to ``loc`` (M2L).
 
-    Vectorised across the nodes: moments gathered into ``am`` (component,
-    node), the derivatives of 1/|R| built by their recurrence in ``dm``, then
-    one dot product over the nodes per translation term.
+    Vectorised across the nodes: reduced moments gathered into ``am``
+    (component, node), the derivatives of 1/|R| built by their recurrence
+    in ``dm``, then one dot product over the nodes per translation term
+    (see :func:`chargesim.coulomb._multipoles.m2l_table`); ``gk`` scratch.
     """
-    ncl = loc.size
+    nred = mm.shape[1]
     for f in range(nm):
         k = mlist[f]
         rx = gx - nd[k, 0]
@@ -400,13 +397,14 @@ def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef,
         ir2 = 1.0 / (rx * rx + ry * ry + rz * rz)
         geo[3, f] = ir2
         dm[0, f] = np.sqrt(ir2)
-        for c in range(ncl):
+        for c in range(nred):
             am[c, f] = mm[k, c]
     rx = geo[0]
     ry = geo[1]
     rz = geo[2]
     ir2 = geo[3]
-    for c in range(1, ncl):
+    for u in range(deriv.size):
+        c = deriv[u]
         a0 = dm[didx[c, 0]]
         a1 = dm[didx[c, 1]]
         a2 = dm[didx[c, 2]]
@@ -423,13 +421,19 @@ def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef,
         for f in range(nm):
             out[f] = (k0 * rx[f] * a0[f] + k1 * ry[f] * a1[f] + k2 * rz[f] * a2[f]
                       + k3 * a3[f] + k4 * a4[f] + k5 * a5[f]) * ir2[f]
+    for c in range(gk.size):
+        gk[c] = 0.0
     for r in range(rows.shape[0]):
         an = am[rows[r, 1]]
         dk = dm[rows[r, 2]]
         acc = 0.0
         for f in range(nm):
             acc += an[f] * dk[f]
-        loc[rows[r, 0]] += acc * local_scale[rows[r, 0]]
+        gk[rows[r, 0]] += acc
+    for r in range(unfold.shape[0]):
+        gk[unfold[r, 0]] = -gk[unfold[r, 1]] - gk[unfold[r, 2]]
+    for c in range(gk.size):
+        loc[c] += gk[c] * local_scale[c]
 
 
 @numba.njit(cache=True)
@@ -447,7 +451,7 @@ def _bucket(tag, val, n, nbuckets, off, out):
         fill[tag[i]] += 1
 
 
-@numba.njit(cache=True)
+@numba.njit(inline="always")
 def _push(tag, val, n, t, v):
     if n == tag.size:
         tag = _grow(tag, 2 * n)
@@ -465,22 +469,19 @@ def _traverse(snd, sfirst, snchild, tnd, tfirst, tnchild, tn, ntn, theta, direct
     group, source root). A pair goes
     - to A's local expansion (list 0) when (r_A + b_B) < theta d (d the
       distance of their centres, r_A and b_B their radii: the Taylor series
-      of 1/|R + t - s| converges with ratio below theta) and no target
-      sphere can overlap a source sphere;
-    - when A is a leaf: to A's multipole list (1) when all of A is at least
-      b_B / theta from B's centre (and no spheres overlap), else to its near
-      list (2) when B is a leaf or a small node, else B is opened;
-    - otherwise the larger of A and B is opened (A when B is a leaf).
-    Nodes of at most ``direct_max`` particles never go to lists 0 and 1.
+      of 1/|R + t - s| converges with ratio below theta), no target sphere
+      can overlap a source sphere, and B holds more than ``direct_max``
+      particles;
+    - to A's near list (1) when A and B are leaves, or A is a leaf and B small;
+    - otherwise the larger of A and B is opened (A when B is a leaf or small).
     ``pa``, ``pb`` are a stack of pairs (local index of A in ``tn``, B);
-    lists[l] = (tags, nodes) grown as needed. Returns the lists and counts.
+    lists[l] = (tags, nodes), grown as needed. Returns the stack, the lists
+    and their lengths.
     """
     tag0, val0 = lists[0]
     tag1, val1 = lists[1]
-    tag2, val2 = lists[2]
     n0 = 0
     n1 = 0
-    n2 = 0
     sp = 0
     for a in range(ntn):
         if counts[a] == -1:  # a top node of the group
@@ -490,6 +491,7 @@ def _traverse(snd, sfirst, snchild, tnd, tfirst, tnchild, tn, ntn, theta, direct
             pa[sp] = a
             pb[sp] = 0
             sp += 1
+    th2 = theta * theta
     while sp > 0:
         sp -= 1
         a = pa[sp]
@@ -500,27 +502,23 @@ def _traverse(snd, sfirst, snchild, tnd, tfirst, tnchild, tn, ntn, theta, direct
         dx = snd[k, 0] - tnd[ta, 0]
         dy = snd[k, 1] - tnd[ta, 1]
         dz = snd[k, 2] - tnd[ta, 2]
-        d = np.sqrt(dx * dx + dy * dy + dz * dz)
+        d2 = dx * dx + dy * dy + dz * dz
         overlap = max(snd[k, 4], tnd[ta, 4])
-        big = snd[k, 5] > direct_max
-        if big and ra + bb < theta * d and d - ra - bb > overlap:
+        small = snd[k, 5] <= direct_max
+        rab = ra + bb
+        # (r_A + b_B) < theta d and d - r_A - b_B > overlap, in squares
+        if not small and rab * rab < th2 * d2 and d2 > (rab + overlap) ** 2:
             tag0, val0, n0 = _push(tag0, val0, n0, a, k)
             continue
         a_leaf = tnchild[ta] == 0
-        b_leaf = snchild[k] == 0
-        if a_leaf:
-            dmin = d - ra
-            far = dmin * theta > bb and dmin - bb > overlap
-            if far and big:
-                tag1, val1, n1 = _push(tag1, val1, n1, a, k)
-                continue
-            if far or b_leaf:
-                tag2, val2, n2 = _push(tag2, val2, n2, a, k)
-                continue
+        b_end = small or snchild[k] == 0
+        if a_leaf and b_end:
+            tag1, val1, n1 = _push(tag1, val1, n1, a, k)
+            continue
         if sp + 8 > pa.size:
             pa = _grow(pa, 2 * pa.size + 8)
             pb = _grow(pb, 2 * pb.size + 8)
-        if not a_leaf and (b_leaf or ra >= bb):
+        if not a_leaf and (b_end or ra >= bb):
             # open A: its children are consecutive in tn from counts[ntn + a]
             for c in range(tnchild[ta]):
                 pa[sp] = counts[ntn + a] + c
@@ -532,7 +530,7 @@ def _traverse(snd, sfirst, snchild, tnd, tfirst, tnchild, tn, ntn, theta, direct
                 pa[sp] = a
                 pb[sp] = c0 + c
                 sp += 1
-    return pa, pb, (tag0, val0), (tag1, val1), (tag2, val2), n0, n1, n2
+    return pa, pb, (tag0, val0), (tag1, val1), n0, n1
 
 
 @numba.njit(cache=True)
@@ -576,48 +574,43 @@ def _group_nodes(tfirst, tnchild, g0, g1, tn, counts):
 
 
 @numba.njit(parallel=True, fastmath=_FM, cache=True, error_model="numpy")
-def evaluate_fmm(sstart, send, sfirst, snchild, snd, mom, mm, sx, sy, sz, sq, sr, use_radii,
+def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use_radii,
                  tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0s, g1s,
-                 theta, direct_max, didx, dcoef, rows, local_scale, grad_rows, shift_idx, shift_coef,
-                 parent, axis, n_blocks, ex, ey, ez, phi, nzero):
+                 theta, direct_max, didx, dcoef, rows, unfold, deriv, local_scale, grad_rows,
+                 shift_idx, shift_coef, parent, axis, n_blocks, ex, ey, ez, phi, nzero):
     """Field and potential sums at the (Morton-sorted) targets, group by group.
 
-    For each target group: the dual walk (:func:`_traverse`) gives each of
-    its target nodes a list of source nodes for its local expansion (M2L,
-    vectorised across the nodes), and each of its target leaves a list of
-    multipoles evaluated per target and a list of near leaves summed
-    exactly. Local expansions are shifted down the group's nodes (L2L) and
-    evaluated at the targets (L2P). ``self_targets``: targets are the sorted
-    sources; the self pair is skipped by its zero distance (points, counted
-    in ``nzero``) or its exact zero field (spheres).
+    For each target group the dual walk (:func:`_traverse`) gives each of its
+    target nodes a list of source nodes for its local expansion (M2L,
+    vectorised across the nodes) and each of its target leaves a list of
+    near source nodes, summed exactly. Local expansions are shifted down the
+    group's nodes (L2L) and evaluated at the targets (L2P). Results depend
+    on the group alone, never on the thread that ran it.
+    ``self_targets``: targets are the sorted sources; the self pair is
+    skipped by its zero distance (points, counted in ``nzero``) or its exact
+    zero field (spheres).
     """
     ng = g0s.size
-    ncl = mm.shape[1]
+    ncl = local_scale.size
+    nred = mm.shape[1]
     for blk in numba.prange(n_blocks):
         ga = (blk * ng) // n_blocks
         gb = ((blk + 1) * ng) // n_blocks
-        fb = np.empty((_FAR_ROWS, 512), np.float64)
         nb = np.empty((5, 4096), np.float64)
         pa = np.empty(1024, np.int64)
         pb = np.empty(1024, np.int64)
         lists = ((np.empty(1024, np.int64), np.empty(1024, np.int64)),
-                 (np.empty(1024, np.int64), np.empty(1024, np.int64)),
                  (np.empty(1024, np.int64), np.empty(1024, np.int64)))
         tn = np.empty(64, np.int64)
         counts = np.empty(128, np.int64)
-        srt = np.empty(1024, np.int64)
+        srt0 = np.empty(1024, np.int64)
         srt1 = np.empty(1024, np.int64)
-        srt2 = np.empty(1024, np.int64)
-        off = np.empty(65, np.int64)
+        o0 = np.empty(65, np.int64)
         o1 = np.empty(65, np.int64)
-        o2 = np.empty(65, np.int64)
-        gx = np.empty(512)
-        gy = np.empty(512)
-        gz = np.empty(512)
-        gi = np.empty(512)
-        am = np.empty((ncl, 256))
+        am = np.empty((nred, 256))
         dm = np.empty((ncl, 256))
         geo = np.empty((4, 256))
+        gk = np.empty(ncl)
         loc = np.empty((64, ncl))
         has = np.empty(64, np.bool_)
         grd = np.empty((3, ncl))
@@ -625,36 +618,39 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mom, mm, sx, sy, sz, sq, sr
         dmono = np.empty(ncl)
         for g in range(ga, gb):
             tn, counts, ntn = _group_nodes(tfirst, tnchild, g0s[g], g1s[g], tn, counts)
-            pa, pb, l0, l1, l2, n0, n1, n2 = _traverse(snd, sfirst, snchild, tnd, tfirst, tnchild, tn, ntn,
-                                                        theta, direct_max, pa, pb, lists, counts)
-            lists = (l0, l1, l2)
+            pa, pb, l0, l1, n0, n1 = _traverse(snd, sfirst, snchild, tnd, tfirst, tnchild, tn, ntn, theta,
+                                               direct_max, pa, pb, lists, counts)
+            lists = (l0, l1)
             if loc.shape[0] < ntn:
                 loc = np.empty((tn.size, ncl))
                 has = np.empty(tn.size, np.bool_)
-            if off.size < ntn + 1:
-                off = np.empty(tn.size + 1, np.int64)
-            if srt.size < n0:
-                srt = np.empty(2 * n0, np.int64)
+            if o0.size < ntn + 1:
+                o0 = np.empty(tn.size + 1, np.int64)
+                o1 = np.empty(tn.size + 1, np.int64)
+            if srt0.size < n0:
+                srt0 = np.empty(2 * n0, np.int64)
+            if srt1.size < n1:
+                srt1 = np.empty(2 * n1, np.int64)
+            _bucket(l0[0], l0[1], n0, ntn, o0, srt0)
+            _bucket(l1[0], l1[1], n1, ntn, o1, srt1)
             # M2L: per target node, its source nodes in one vectorised batch
             for a in range(ntn):
                 has[a] = False
                 for c in range(ncl):
                     loc[a, c] = 0.0
-            if n0 > 0:
-                _bucket(l0[0], l0[1], n0, ntn, off, srt)
-                for a in range(ntn):
-                    cnt = off[a + 1] - off[a]
-                    if cnt == 0:
-                        continue
-                    if am.shape[1] < cnt:
-                        am = np.empty((ncl, 2 * cnt))
-                        dm = np.empty((ncl, 2 * cnt))
-                        geo = np.empty((4, 2 * cnt))
-                    ta = tn[a]
-                    _local_coefficients(snd, mm, srt[off[a]:off[a + 1]], cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2],
-                                        am, dm, geo, didx, dcoef, rows, local_scale, loc[a])
-                    has[a] = True
-            # L2L: parents come before their children in tn
+                cnt = o0[a + 1] - o0[a]
+                if cnt == 0:
+                    continue
+                if am.shape[1] < cnt:
+                    am = np.empty((nred, 2 * cnt))
+                    dm = np.empty((ncl, 2 * cnt))
+                    geo = np.empty((4, 2 * cnt))
+                ta = tn[a]
+                _local_coefficients(snd, mm, srt0[o0[a]:o0[a + 1]], cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2],
+                                    am, dm, geo, didx, dcoef, deriv, rows, unfold, local_scale, gk, loc[a])
+                has[a] = True
+            # L2L, L'_k = sum_{m >= k} C(m, k) L_m d^(m - k): parents come
+            # before their children in tn
             for a in range(ntn):
                 pa_ = counts[a]
                 if pa_ < 0 or not has[pa_]:
@@ -663,44 +659,18 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mom, mm, sx, sy, sz, sq, sr
                 tp = tn[pa_]
                 _monomials(tnd[ta, 0] - tnd[tp, 0], tnd[ta, 1] - tnd[tp, 1], tnd[ta, 2] - tnd[tp, 2], 1.0,
                            parent, axis, dmono)
-                # L'_k = sum_{m >= k} C(m, k) L_m d^(m - k)
                 for r in range(shift_coef.size):
                     loc[a, shift_idx[r, 1]] += shift_coef[r] * loc[pa_, shift_idx[r, 0]] * dmono[shift_idx[r, 2]]
                 has[a] = True
-            # per-target-leaf multipole (1) and near (2) lists
-            if srt1.size < n1:
-                srt1 = np.empty(2 * n1, np.int64)
-            if srt2.size < n2:
-                srt2 = np.empty(2 * n2, np.int64)
-            if o1.size < ntn + 1:
-                o1 = np.empty(2 * ntn + 1, np.int64)
-                o2 = np.empty(2 * ntn + 1, np.int64)
-            _bucket(l1[0], l1[1], n1, ntn, o1, srt1)
-            _bucket(l2[0], l2[1], n2, ntn, o2, srt2)
             for a in range(ntn):
                 ta = tn[a]
                 if tnchild[ta] != 0:
                     continue
-                # multipoles of this leaf into fb
-                nf = 0
+                # near particles gathered into one contiguous run: one long
+                # vectorised loop per target instead of many short ones
+                tot = 0
                 for u in range(o1[a], o1[a + 1]):
                     k = srt1[u]
-                    if nf == fb.shape[1]:
-                        fb = _grow_rows(fb, 2 * nf, nf)
-                    for c in range(3):
-                        fb[c, nf] = snd[k, c]
-                    for c in range(mom.shape[1]):
-                        fb[3 + c, nf] = mom[k, c]
-                    nf += 1
-                if gx.size < nf:
-                    gx = np.empty(fb.shape[1])
-                    gy = np.empty(fb.shape[1])
-                    gz = np.empty(fb.shape[1])
-                    gi = np.empty(fb.shape[1])
-                # near particles gathered into one contiguous run
-                tot = 0
-                for u in range(o2[a], o2[a + 1]):
-                    k = srt2[u]
                     s0 = sstart[k]
                     s1 = send[k]
                     if tot + (s1 - s0) > nb.shape[1]:
@@ -720,6 +690,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mom, mm, sx, sy, sz, sq, sr
                 br = nb[4]
                 use_loc = has[a]
                 if use_loc:
+                    # E = -grad sum_k L_k t^k = -sum_j grd[:, j] t^j
                     for c in range(ncl):
                         grd[0, c] = 0.0
                         grd[1, c] = 0.0
@@ -733,22 +704,17 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mom, mm, sx, sy, sz, sq, sr
                     xi = tx[i]
                     yi = ty[i]
                     zi = tz[i]
-                    ax, ay, az, p = far_sum(xi, yi, zi, fb, nf, gx, gy, gz, gi)
+                    ax = 0.0
+                    ay = 0.0
+                    az = 0.0
+                    p = 0.0
                     if use_loc:
                         _monomials(xi - cax, yi - cay, zi - caz, 1.0, parent, axis, tm)
-                        lp = 0.0
-                        lx = 0.0
-                        ly = 0.0
-                        lz = 0.0
                         for c in range(ncl):
-                            lp += loc[a, c] * tm[c]
-                            lx += grd[0, c] * tm[c]
-                            ly += grd[1, c] * tm[c]
-                            lz += grd[2, c] * tm[c]
-                        ax -= lx
-                        ay -= ly
-                        az -= lz
-                        p += lp
+                            p += loc[a, c] * tm[c]
+                            ax -= grd[0, c] * tm[c]
+                            ay -= grd[1, c] * tm[c]
+                            az -= grd[2, c] * tm[c]
                     if use_radii:
                         ri = tr[i]
                         fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, tot)

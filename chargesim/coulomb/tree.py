@@ -1,47 +1,46 @@
 """Tree evaluator for large open systems: a fast multipole method on a Morton octree.
 
 Sources are sorted along a Morton (Z-order) curve and cut into an octree whose
-leaves hold at most ``LEAF_SIZE`` particles. Each node carries its multipole
-moments to order 5 (symmetric trace-free) and raw Cartesian moments to order
-6 about its *geometric* centre (the centre of the bounding box of its
-particles; a charge-weighted centre can lie anywhere when mixed-sign charges
-cancel), and its extent b (largest distance of one of its particles from that
-centre). Moments come from the particles at the leaves and are shifted up
-the tree (P2M, M2M); the formulas are in :mod:`chargesim.coulomb._multipoles`.
+leaves hold at most ``LEAF_SIZE`` particles. Each node carries its raw
+Cartesian moments to order 6 about its *geometric* centre (the centre of the
+bounding box of its particles; a charge-weighted centre can lie anywhere
+when mixed-sign charges cancel) and its extent b (largest distance of one of
+its particles from that centre). Moments come from the particles at the
+leaves and are shifted up the tree (P2M, M2M); the expansion formulas are in
+:mod:`chargesim.coulomb._multipoles`.
 
 Targets are sorted by Morton code too (the sources themselves, or an octree
-of their own) and handled in groups of neighbouring targets (the largest
-target nodes holding at most ``GROUP_SIZE`` of them, consecutive small
-siblings merged), one group at a time per thread, in a fixed order whatever
-the thread count. For each group a dual walk pairs its target nodes A with
-source nodes B:
+of their own: field grids and probe points) and handled in groups of
+neighbouring targets (the largest target nodes holding at most
+``GROUP_SIZE`` of them, consecutive small siblings merged), one group at a
+time per thread, in a fixed order whatever the thread count. For each group
+a dual walk pairs its target nodes A with source nodes B:
 
 - **local expansion** (M2L) when (r_A + b_B) < theta d, d the distance of
   the two centres and r_A, b_B their radii: the Taylor series of
-  1/|R + t - s| about both centres converges with ratio below theta; it is
-  kept to total order 6 and the field error of a pair falls as theta^6.
+  1/|R + t - s| about both centres converges with ratio below theta. It is
+  kept to total order 6, so the field error of a pair falls as theta^6.
   Local expansions are shifted down to the group's leaves (L2L) and
   evaluated at each target (L2P);
-- at a target leaf, **multipole** (M2P, order 5, error ~ (b_B / d_min)^6)
-  when every point of the leaf's sphere is at least b_B / theta from B's
-  centre;
-- else **near**: B's particles summed exactly at each target of the leaf
+- **near**, when both are leaves (or B holds at most ``DIRECT_MAX``
+  particles): B's particles summed exactly at each target of the leaf
   (finite radii: the uniformly-charged-sphere kernel of the direct sum,
-  a = max(R_i, R_j)); nodes with at most ``DIRECT_MAX`` particles always;
+  a = max(R_i, R_j));
 - otherwise the larger of A and B is opened.
 
-No pair is accepted where a target sphere could overlap a source sphere.
+No pair is expanded where a target sphere could overlap a source sphere.
+(An order-5 multipole evaluated per target for pairs between the two cases
+was tried and dropped: at equal measured error it was no faster.)
 
-Accuracy. The worst-case bounds of both expansions (Salmon & Warren 1994 for
-the multipole one; from memory) lie far above the typical error, since the
-contributions of many nodes add with random signs, so theta is set from the
-asked rms relative field error as
+Accuracy. The worst-case bound of the truncation lies far above the typical
+error, since the contributions of many pairs add with random signs, so
+theta is set from the asked rms relative field error as
 ``theta = THETA_REF * (accuracy / 1e-3) ** THETA_EXPONENT`` with constants
 calibrated on measured errors: the tests check the measured rms relative
 field error against the direct sum, for uniform and clustered mixed-sign and
 one-sign charges, at 1e-2, 1e-3 and 1e-4.
 
-Memory: about 150-250 bytes per particle (sorted copies, permutation, node
+Memory: about 100-200 bytes per particle (sorted copies, permutation, node
 geometry and moments, results); no N x N array, per-thread interaction
 buffers only.
 """
@@ -53,11 +52,11 @@ from . import _checks
 from . import _multipoles as _mp
 from . import _tree_kernels as _k
 
-_PARENT, _AXIS = _mp.monomial_table(_mp.LOCAL_ORDER)
-_SHIFT_IDX, _SHIFT_COEF = _mp.shift_table(_mp.LOCAL_ORDER)
-_RAW_TO_STORED_T = np.ascontiguousarray(_mp.raw_to_stored().T)
+_PARENT, _AXIS = _mp.monomial_table()
+_SHIFT_IDX, _SHIFT_COEF = _mp.shift_table()
 _DIDX, _DCOEF = _mp.derivative_table()
-_M2L_ROWS, _MOMENT_SCALE, _LOCAL_SCALE = _mp.m2l_table()
+_M2L_ROWS, _FOLD, _UNFOLD, _DERIV, _MOMENT_SCALE, _LOCAL_SCALE = _mp.m2l_table()
+_FOLD_T = np.ascontiguousarray((_FOLD * _MOMENT_SCALE).T)
 _GRAD_ROWS = _mp.gradient_table()
 
 #: Options of this method and their defaults: ``accuracy`` is the asked rms
@@ -87,13 +86,15 @@ GROUP_SIZE = 1024
 DIRECT_MAX = 8
 #: Opening angle at accuracy 1e-3, calibrated: measured rms field errors on
 #: 1e5 mixed-sign charges (benchmarks/bench_tree.py's sets, 500 sampled
-#: particles), theta 0.4 / 0.45 / 0.55 / 0.65 / 0.75: clustered 4.3e-5 /
-#: 8.3e-5 / 3.3e-4 / 1.1e-3 / 2.7e-3, uniform - / 6.6e-5 / 2.0e-4 / 7.5e-4
-#: / -. At 0.55 the worse (clustered) set sits at 0.33 x the asked 1e-3.
-THETA_REF = 0.55
+#: particles) at theta 0.45 / 0.5 / 0.55 / 0.65 / 0.75: uniform 4.3e-5 /
+#: 9.6e-5 / 1.5e-4 / 6.5e-4 / 1.3e-3, clustered 5.2e-5 / 1.1e-4 / 2.5e-4 /
+#: 9.1e-4 / 2.3e-3. At 0.58 the worse (clustered) set sits near 0.4 x the
+#: asked 1e-3.
+THETA_REF = 0.58
 #: theta = THETA_REF * (accuracy / 1e-3) ** THETA_EXPONENT: the measured
-#: error falls as theta^5.5 - theta^7 over that range.
-THETA_EXPONENT = 1.0 / 6.5
+#: error falls as theta^7.4 - theta^7.8 over that range (the bound's
+#: theta^ORDER = theta^6, plus the random signs of many pairs).
+THETA_EXPONENT = 1.0 / 7.5
 #: Range of the opening angle: below 0.1 the tree degenerates into the direct
 #: sum, above 0.75 the expansions converge too slowly to be controlled.
 THETA_RANGE = (0.1, 0.75)
@@ -191,8 +192,7 @@ class Tree:
         _k.leaf_moments(self._start, self._end, self._nchild, self._nd, self._x, self._y, self._z, self._q,
                         _PARENT, _AXIS, raw)
         _k.upward_moments(self._first, self._nchild, self._nd, raw, _PARENT, _AXIS, _SHIFT_IDX, _SHIFT_COEF)
-        self._mom = raw[:, : _mp.NCOMP] @ _RAW_TO_STORED_T
-        self._mm = raw * _MOMENT_SCALE
+        self._mm = raw @ _FOLD_T
         del raw
         self._g0, self._g1 = _k.groups(self._start, self._end, self._first, self._nchild, GROUP_SIZE)
 
@@ -205,7 +205,7 @@ class Tree:
     def nbytes(self):
         """Bytes held by the tree's arrays (sorted sources, nodes, permutation)."""
         arrs = (self._perm, self._x, self._y, self._z, self._q, self._r, self._start, self._end,
-                self._first, self._nchild, self._nd, self._mom, self._mm, self._g0, self._g1)
+                self._first, self._nchild, self._nd, self._mm, self._g0, self._g1)
         return int(sum(a.nbytes for a in arrs))
 
     def evaluate(self, targets=None, *, need_field=True, need_potential=True, accuracy=OPTIONS["accuracy"]):
@@ -262,10 +262,11 @@ class Tree:
         old = numba.get_parallel_chunksize()
         numba.set_parallel_chunksize(1)
         try:
-            _k.evaluate_fmm(self._start, self._end, self._first, self._nchild, self._nd, self._mom, self._mm,
+            _k.evaluate_fmm(self._start, self._end, self._first, self._nchild, self._nd, self._mm,
                             self._x, self._y, self._z, self._q, self._r, use_radii,
                             tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0, g1,
-                            theta, int(DIRECT_MAX), _DIDX, _DCOEF, _M2L_ROWS, _LOCAL_SCALE, _GRAD_ROWS,
+                            theta, int(DIRECT_MAX), _DIDX, _DCOEF, _M2L_ROWS, _UNFOLD, _DERIV,
+                            _LOCAL_SCALE, _GRAD_ROWS,
                             _SHIFT_IDX, _SHIFT_COEF, _PARENT, _AXIS, nb, ex, ey, ez, phi, nzero)
         finally:
             numba.set_parallel_chunksize(old)

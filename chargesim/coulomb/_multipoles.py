@@ -195,6 +195,25 @@ def m2l_table(p=ORDER):
             moment_scale, local_scale)
 
 
+def block_rows(rows, ncomp, width=4):
+    """M2L terms grouped by moment, ``width`` local coefficients at a time.
+
+    One pass over the nodes then loads the moment once for ``width``
+    products. Rows (n, k_1..k_width, (n+k)_1..(n+k)_width); a block short
+    of ``width`` terms is padded with the slot ``ncomp`` (a scratch
+    coefficient that is never read) and a repeated n + k.
+    """
+    out = []
+    for n in np.unique(rows[:, 1]):
+        sel = rows[rows[:, 1] == n]
+        for lo in range(0, sel.shape[0], width):
+            part = sel[lo : lo + width]
+            ks = list(part[:, 0]) + [ncomp] * (width - part.shape[0])
+            nks = list(part[:, 2]) + [part[0, 2]] * (width - part.shape[0])
+            out.append([n] + ks + nks)
+    return np.array(out, np.int64)
+
+
 def gradient_table(p=ORDER):
     """Terms of the gradient of sum_k L_k t^k: rows (k, axis, index of k - e_axis, k_axis)."""
     rows = []

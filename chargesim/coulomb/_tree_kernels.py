@@ -423,16 +423,31 @@ def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef,
                       + k3 * a3[f] + k4 * a4[f] + k5 * a5[f]) * ir2[f]
     for c in range(gk.size):
         gk[c] = 0.0
+    # rows in blocks of four terms sharing one moment (see
+    # _multipoles.block_rows): one load of it for four products
     for r in range(rows.shape[0]):
-        an = am[rows[r, 1]]
-        dk = dm[rows[r, 2]]
-        acc = 0.0
+        an = am[rows[r, 0]]
+        d1 = dm[rows[r, 5]]
+        d2 = dm[rows[r, 6]]
+        d3 = dm[rows[r, 7]]
+        d4 = dm[rows[r, 8]]
+        s1 = 0.0
+        s2 = 0.0
+        s3 = 0.0
+        s4 = 0.0
         for f in range(nm):
-            acc += an[f] * dk[f]
-        gk[rows[r, 0]] += acc
+            a = an[f]
+            s1 += a * d1[f]
+            s2 += a * d2[f]
+            s3 += a * d3[f]
+            s4 += a * d4[f]
+        gk[rows[r, 1]] += s1
+        gk[rows[r, 2]] += s2
+        gk[rows[r, 3]] += s3
+        gk[rows[r, 4]] += s4
     for r in range(unfold.shape[0]):
         gk[unfold[r, 0]] = -gk[unfold[r, 1]] - gk[unfold[r, 2]]
-    for c in range(gk.size):
+    for c in range(local_scale.size):
         loc[c] += gk[c] * local_scale[c]
 
 
@@ -610,7 +625,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
         am = np.empty((nred, 256))
         dm = np.empty((ncl, 256))
         geo = np.empty((4, 256))
-        gk = np.empty(ncl)
+        gk = np.empty(ncl + 1)  # one scratch slot for padded terms
         loc = np.empty((64, ncl))
         has = np.empty(64, np.bool_)
         grd = np.empty((3, ncl))

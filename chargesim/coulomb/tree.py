@@ -55,7 +55,8 @@ from . import _tree_kernels as _k
 _PARENT, _AXIS = _mp.monomial_table()
 _SHIFT_IDX, _SHIFT_COEF = _mp.shift_table()
 _DIDX, _DCOEF = _mp.derivative_table()
-_M2L_ROWS, _FOLD, _UNFOLD, _DERIV, _MOMENT_SCALE, _LOCAL_SCALE = _mp.m2l_table()
+_M2L_TERMS, _FOLD, _UNFOLD, _DERIV, _MOMENT_SCALE, _LOCAL_SCALE = _mp.m2l_table()
+_M2L_ROWS = _mp.block_rows(_M2L_TERMS, _LOCAL_SCALE.size)
 _FOLD_T = np.ascontiguousarray((_FOLD * _MOMENT_SCALE).T)
 _GRAD_ROWS = _mp.gradient_table()
 
@@ -66,17 +67,21 @@ OPTIONS = {"accuracy": 1e-3}
 #: Particles above which the tree beats the direct sum on the reference
 #: machine (2-core AMD EPYC, shared), field + potential at every particle,
 #: accuracy 1e-3, uniform mixed-sign charges; measured by
-#: ``benchmarks/bench_tree.py --crossover-only``: direct/tree time 0.74 at
-#: N = 500, 1.07 at 700, 1.28 at 1000 (1.0 ms vs 0.79 ms; 1.04-1.37 over
-#: three runs), 1.8 at 2000, 3.0 at 5000, 7 at 20000. Put at 1000, where the
-#: tree is faster in every run.
-CROSSOVER = 1000
+#: ``benchmarks/bench_tree.py --crossover-only``: direct/tree time 0.43 at
+#: N = 1000, 1.03 at 1500, 1.02 at 2000, 1.41 at 3000, 1.53 at 5000, 1.9
+#: at 1e4, 4.5 at 2e4. Put at 3000: below it the two are within noise, and
+#: the direct sum is exact.
+CROSSOVER = 3000
 
-#: Most particles in a leaf of the source tree (leaves of a uniform cloud
-#: then hold ~8-64, mean ~30). Measured on 1e5 uniform mixed-sign charges at
-#: equal error (~7e-5), single thread: leaves of 64 took 1.7 s, 128 1.9 s,
-#: 96 2.1 s, 32 1.9 s; 16 took 6 s (too many M2L translations).
-LEAF_SIZE = 64
+#: Most particles in a leaf of the source tree. A uniform cloud's leaves then
+#: hold between 1/8 of that and all of it, depending on N. Leaves of ~10 are
+#: slow (many translations per target) and less accurate: single thread,
+#: uniform mixed-sign, theta 0.58, leaves of at most 64 vs 128: N = 5000
+#: (leaves ~10 vs ~78) 0.10 s / err 3.1e-4 vs 0.043 s / 4.5e-5; N = 4e4
+#: (~10 vs ~78) 0.47 s / 5.2e-4 vs 0.58 s / 1.2e-4; at 1e5 and 1e6 both
+#: give the same leaves (~24-30). At equal error (1e5, leaves ~24) 16 took
+#: 3.5x, 32 1.1x the time of 64.
+LEAF_SIZE = 128
 #: Most targets in a group that shares one dual walk. Within a group the walk
 #: descends the target nodes, so a group can be large; 1024 keeps the walks
 #: from the root few (1e5 uniform: 128 took 1.9 s, 512 1.9 s, 1024 1.7 s).

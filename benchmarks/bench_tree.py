@@ -5,8 +5,8 @@ cube and clustered), accuracy 1e-3, against ``fmm3dpy.lfmm3d`` at eps = 1e-3
 on the same points in the same run. Error: rms relative field error
 sqrt(sum|E - E_ref|^2 / sum|E_ref|^2) on 1000 sampled particles against the
 direct sum. fmm3dpy at eps 1e-3 lands well below 1e-3, so the equal-error
-comparison takes the tree at the largest accuracy of 1e-3, 5e-4, 3e-4, 2e-4,
-1e-4, 5e-5 whose measured error is at most fmm3dpy's. Then the crossover
+comparison takes the tree at the largest accuracy of the ladder MATCH_LADDER
+(1e-3 down to 5e-5) whose measured error is at most fmm3dpy's. Then the crossover
 against the direct sum (N = 500 .. 2e4).
 
 Usage: python benchmarks/bench_tree.py [--quick] [--no-fmm] [--crossover-only]
@@ -71,7 +71,7 @@ def rms_rel(a, ref):
 
 
 #: Accuracies tried for the equal-error comparison, coarsest first.
-MATCH_LADDER = (1e-3, 5e-4, 3e-4, 2e-4, 1e-4, 5e-5)
+MATCH_LADDER = (1e-3, 7e-4, 5e-4, 4e-4, 3e-4, 2.5e-4, 2e-4, 1.5e-4, 1e-4, 7e-5, 5e-5)
 
 
 def run_tree(pos, q, accuracy=1e-3):

@@ -345,3 +345,91 @@ def test_radii_with_point_members_and_huge_self_potential():
     e, p = tree.evaluate(pos, q, None, radii, accuracy=1e-3)
     assert _err(e, e_ref) <= 1e-3 and _err(p, p_ref) <= 1e-3
 
+
+
+def _monos(points, p):
+    from chargesim.coulomb import _multipoles as mp
+
+    parent, axis = mp.monomial_table(p)
+    out = np.ones((points.shape[0], parent.size))
+    for c in range(1, parent.size):
+        out[:, c] = out[:, parent[c]] * points[:, axis[c]]
+    return out
+
+
+def _local_expansion(s, q, r_vec):
+    """Local coefficients at a target centre R = r_vec from charges q at s (source centre 0)."""
+    from chargesim.coulomb import _tree_kernels as _k
+
+    raw = (q @ _monos(s, tree._mp.ORDER))[None, :]
+    mm = raw @ tree._FOLD_T
+    nd = np.zeros((1, _k.NODE_COLS))
+    ncl = tree._LOCAL_SCALE.size
+    loc = np.zeros(ncl)
+    _k._local_coefficients(nd, mm, np.zeros(1, np.int64), 1, r_vec[0], r_vec[1], r_vec[2],
+                           np.empty((mm.shape[1], 1)), np.empty((ncl, 1)), np.empty((4, 1)), tree._DIDX,
+                           tree._DCOEF, tree._DERIV, tree._M2L_ROWS, tree._UNFOLD, tree._LOCAL_SCALE,
+                           np.empty(ncl + 1), loc)
+    return loc
+
+
+def test_local_expansion_converges_at_its_order():
+    # reference: Coulomb's law summed directly. The translated expansion of
+    # a source cluster about a distant target centre is the Taylor series of
+    # 1/|R + t - s| kept to total order ORDER = 6: its potential error must
+    # fall as (size / distance)^7, so by ~2^7 each time the distance doubles
+    rng = _rng(30)
+    s = rng.uniform(-1, 1, (30, 3))
+    q = rng.normal(size=30)
+    t = rng.uniform(-1, 1, (20, 3))
+    errs = []
+    for dist in (8.0, 16.0, 32.0):
+        r_vec = dist * np.array([0.6, 0.48, -0.64])
+        loc = _local_expansion(s, q, r_vec)
+        phi = _monos(t, tree._mp.ORDER) @ loc
+        d = (r_vec + t)[:, None, :] - s[None, :, :]
+        ref = (q / np.linalg.norm(d, axis=2)).sum(axis=1)
+        errs.append(np.abs(phi - ref).max() / np.abs(ref).max())
+    ratios = [errs[0] / errs[1], errs[1] / errs[2]]
+    assert errs[0] < 1e-4
+    assert all(2**6 < r < 2**8.5 for r in ratios), ratios
+
+
+def test_local_shift_is_exact():
+    # a local expansion is a polynomial: shifting it to a new centre (L2L,
+    # binomial theorem) must give the same values (exact algebra)
+    from chargesim.coulomb import _multipoles as mp
+
+    rng = _rng(31)
+    loc = rng.normal(size=mp.n_components(mp.ORDER))
+    delta = np.array([0.3, -0.2, 0.15])
+    dmono = _monos(delta[None, :], mp.ORDER)[0]
+    shifted = np.zeros_like(loc)
+    for (m, k, mk), c in zip(tree._SHIFT_IDX, tree._SHIFT_COEF):
+        shifted[k] += c * loc[m] * dmono[mk]
+    t = rng.uniform(-0.5, 0.5, (10, 3))
+    np.testing.assert_allclose(_monos(t, mp.ORDER) @ shifted, _monos(t + delta, mp.ORDER) @ loc, rtol=1e-12)
+
+
+def test_local_expansion_equals_the_truncated_legendre_series():
+    # reference: 1/|R - u| = sum_j |u|^j / |R|^(j+1) P_j(cos angle(R, u))
+    # (Legendre expansion of the Coulomb kernel, any electromagnetism text;
+    # P_j from scipy.special). The translation keeps the terms of total
+    # order |n| + |k| <= ORDER of the Taylor series of 1/|R + t - s|, which
+    # are exactly the Legendre terms j <= ORDER with u = s - t: so for any
+    # charges, sum_k L_k t^k must equal that truncated series to round-off.
+    from scipy.special import eval_legendre
+
+    rng = _rng(32)
+    s = rng.uniform(-1, 1, (6, 3))
+    q = rng.normal(size=6)
+    t = rng.uniform(-1, 1, (15, 3))
+    r_vec = np.array([3.1, -2.2, 1.7])
+    loc = _local_expansion(s, q, r_vec)
+    phi = _monos(t, tree._mp.ORDER) @ loc
+    u = s[None, :, :] - t[:, None, :]
+    un = np.linalg.norm(u, axis=2)
+    rn = np.linalg.norm(r_vec)
+    cos = (u @ r_vec) / (un * rn)
+    ref = sum((q * un**j * eval_legendre(j, cos)).sum(axis=1) / rn ** (j + 1) for j in range(tree._mp.ORDER + 1))
+    np.testing.assert_allclose(phi, ref, rtol=1e-12, atol=1e-14 * np.abs(ref).max())

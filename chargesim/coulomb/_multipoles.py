@@ -29,9 +29,12 @@ import math
 import numpy as np
 
 #: Total order of the translations (|n| + |k| <= ORDER): the field error of
-#: an accepted pair falls as theta^ORDER. See chargesim.coulomb.tree for the
-#: measurements behind the choice.
-ORDER = 6
+#: an accepted pair falls as theta^ORDER. Measured on 1e5 uniform mixed-sign
+#: charges, one thread, at equal error (~6e-5): order 6 1.29 s (theta
+#: 0.468), 7 1.04 s (theta 0.55), 8 1.08 s (theta ~0.58): higher orders cost
+#: more per translation but let theta grow, which shrinks the exact near
+#: field. See chargesim.coulomb.tree for the calibration.
+ORDER = 7
 
 
 def multi_indices(n):
@@ -139,7 +142,7 @@ def m2l_table(p=ORDER):
     G; and G itself is harmonic (sum_i G_(k + 2e_i) = 0, also after the
     truncation, whose range of n is the same for the three terms), so only
     G_k with k_z <= 1 are summed and the others follow from them. For p = 6
-    that is 532 terms instead of 924.
+    that is 532 terms instead of 924 (876 instead of 1716 for p = 7).
 
     Returns
     -------

@@ -10,39 +10,11 @@ grounded conductor's surface an equipotential for a set of free charges. The
 images are charges like the free ones: the caller divides their field by the
 medium's eps_r, exactly as for the free charges.
 """
-import math
 
 import numpy as np
 
 from .. import coulomb
 from ..coulomb import _checks
-
-
-def as_vector(value, name, *, unit=False):
-    """Check a 3-vector (finite; nonzero and normalized if ``unit``)."""
-    try:
-        v = np.asarray(value, dtype=np.float64).reshape(-1)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be three numbers, got {value!r}") from None
-    if v.shape != (3,) or not np.all(np.isfinite(v)):
-        raise ValueError(f"{name} must be three finite numbers, got {value!r}")
-    if unit:
-        n = float(np.linalg.norm(v))
-        if n == 0.0:
-            raise ValueError(f"{name} must be a nonzero direction, got {value!r}")
-        v = v / n
-    return v
-
-
-def as_number(value, name, *, positive=False):
-    """Check a finite scalar (> 0 if ``positive``) and return it as float."""
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        raise ValueError(f"{name} must be a number, got {value!r}") from None
-    if not math.isfinite(v) or (positive and v <= 0):
-        raise ValueError(f"{name} must be a finite{' positive' if positive else ''} number, got {value!r}")
-    return v
 
 
 class FieldSource:

@@ -2,7 +2,8 @@
 import numba
 import numpy as np
 
-from .base import FieldSource, as_vector
+from .. import _validate
+from .base import FieldSource
 
 #: Points this far outside the grid (in cells) still count as on its edge.
 _EDGE = 1e-9
@@ -77,7 +78,7 @@ class GriddedField(FieldSource):
 
     def __init__(self, origin, spacing, field, potential=None, name="gridded field"):
         self.name = str(name)
-        self.origin = as_vector(origin, "origin")
+        self.origin = _validate.vector(origin, "origin")
         sp = np.asarray(spacing, dtype=np.float64)
         sp = np.full(3, float(sp)) if sp.ndim == 0 else sp.reshape(-1)
         if sp.shape != (3,) or not np.all(np.isfinite(sp)) or np.any(sp <= 0):

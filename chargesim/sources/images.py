@@ -10,7 +10,8 @@ import math
 
 import numpy as np
 
-from .base import ImageSystem, as_number, as_vector
+from .. import _validate
+from .base import ImageSystem
 from .simple import as_axis
 
 #: Error constant of the corrected image series of two plates, measured
@@ -34,8 +35,8 @@ class GroundedPlane(ImageSystem):
 
     def __init__(self, point, normal, name="grounded plane"):
         self.name = str(name)
-        self.point = as_vector(point, "point")
-        self.normal = as_vector(normal, "normal", unit=True)
+        self.point = _validate.vector(point, "point")
+        self.normal = _validate.unit(normal, "normal")
 
     def _images(self, pos, q):
         h = (pos - self.point) @ self.normal
@@ -75,7 +76,7 @@ class GroundedPlates(ImageSystem):
         self.name = str(name)
         self.axis = as_axis(axis)
         try:
-            a, b = (as_number(p, "positions") for p in positions)
+            a, b = (_validate.finite(p, "positions") for p in positions)
         except (TypeError, ValueError) as exc:
             raise ValueError(f"positions must be two plate coordinates in m: {exc}") from None
         if not a < b:
@@ -84,7 +85,7 @@ class GroundedPlates(ImageSystem):
                 raise ValueError(f"positions must be two distinct plate coordinates, got {positions!r}")
         self.positions = (a, b)
         self.gap = b - a
-        self.tol = as_number(tol, "tol", positive=True)
+        self.tol = _validate.positive(tol, "tol")
         self.periods = max(1, int(math.ceil((_PLATES_ERROR / self.tol) ** (1.0 / 3.5))))
 
     @property
@@ -153,8 +154,8 @@ class GroundedSphere(ImageSystem):
 
     def __init__(self, centre, radius, name="grounded sphere"):
         self.name = str(name)
-        self.centre = as_vector(centre, "centre")
-        self.radius = as_number(radius, "radius", positive=True)
+        self.centre = _validate.vector(centre, "centre")
+        self.radius = _validate.positive(radius, "radius")
 
     def _images(self, pos, q):
         rel = pos - self.centre

@@ -1,7 +1,8 @@
 """Uniform fields, parallel plates, and sums of sources."""
 import numpy as np
 
-from .base import FieldSource, as_number, as_vector
+from .. import _validate
+from .base import FieldSource
 
 _AXES = {"x": 0, "y": 1, "z": 2, 0: 0, 1: 1, 2: 2}
 
@@ -29,8 +30,8 @@ class UniformField(FieldSource):
 
     def __init__(self, field, reference_point=(0.0, 0.0, 0.0), name="uniform field"):
         self.name = str(name)
-        self.vector = as_vector(field, "field")
-        self.reference_point = as_vector(reference_point, "reference_point")
+        self.vector = _validate.vector(field, "field")
+        self.reference_point = _validate.vector(reference_point, "reference_point")
 
     def _field(self, pts):
         return np.broadcast_to(self.vector, pts.shape).copy()
@@ -70,8 +71,8 @@ class ParallelPlates(FieldSource):
     def __init__(self, axis, positions, potentials, extent=None, name="parallel plates"):
         self.name = str(name)
         self.axis = as_axis(axis)
-        ua, ub = (as_number(p, "positions") for p in _pair(positions, "positions"))
-        va, vb = (as_number(v, "potentials") for v in _pair(potentials, "potentials"))
+        ua, ub = (_validate.finite(p, "positions") for p in _pair(positions, "positions"))
+        va, vb = (_validate.finite(v, "potentials") for v in _pair(potentials, "potentials"))
         if ua == ub:
             raise ValueError(f"positions must be two distinct plate coordinates, got {positions!r}")
         if ua > ub:

@@ -23,7 +23,8 @@ import numpy as np
 
 from ..coulomb import _checks
 from ..physics.constants import EPSILON_0
-from .base import FieldSource, as_number, as_vector
+from .. import _validate
+from .base import FieldSource
 
 _TWO_PI_EPS0 = 2.0 * math.pi * EPSILON_0
 
@@ -55,14 +56,14 @@ class WireInTube(FieldSource):
     def __init__(self, voltage, wire_radius, tube_radius, origin=(0.0, 0.0, 0.0), axis=(0.0, 0.0, 1.0),
                  length=None, name="wire in tube"):
         self.name = str(name)
-        self.voltage = as_number(voltage, "voltage")
-        self.wire_radius = as_number(wire_radius, "wire_radius", positive=True)
-        self.tube_radius = as_number(tube_radius, "tube_radius", positive=True)
+        self.voltage = _validate.finite(voltage, "voltage")
+        self.wire_radius = _validate.positive(wire_radius, "wire_radius")
+        self.tube_radius = _validate.positive(tube_radius, "tube_radius")
         if self.tube_radius <= self.wire_radius:
             raise ValueError(f"tube_radius ({tube_radius!r} m) must exceed wire_radius ({wire_radius!r} m)")
-        self.origin = as_vector(origin, "origin")
-        self.axis = as_vector(axis, "axis", unit=True)
-        self.length = None if length is None else as_number(length, "length", positive=True)
+        self.origin = _validate.vector(origin, "origin")
+        self.axis = _validate.unit(axis, "axis")
+        self.length = None if length is None else _validate.positive(length, "length")
         self._log = math.log(self.tube_radius / self.wire_radius)
 
     def _radial(self, pts):
@@ -216,12 +217,12 @@ class WirePlateChannel(FieldSource):
     def __init__(self, voltage, wire_radius, plate_distance, wire_spacing, n_wires=1, origin=(0.0, 0.0, 0.0),
                  periodic=False, tol=1e-12, length=None, name="wire-plate channel"):
         self.name = str(name)
-        self.voltage = as_number(voltage, "voltage")
-        self.wire_radius = a = as_number(wire_radius, "wire_radius", positive=True)
-        self.plate_distance = s = as_number(plate_distance, "plate_distance", positive=True)
-        self.wire_spacing = sp = as_number(wire_spacing, "wire_spacing", positive=True)
+        self.voltage = _validate.finite(voltage, "voltage")
+        self.wire_radius = a = _validate.positive(wire_radius, "wire_radius")
+        self.plate_distance = s = _validate.positive(plate_distance, "plate_distance")
+        self.wire_spacing = sp = _validate.positive(wire_spacing, "wire_spacing")
         self.periodic = bool(periodic)
-        self.tol = as_number(tol, "tol", positive=True)
+        self.tol = _validate.positive(tol, "tol")
         if not self.tol < 1:
             raise ValueError(f"tol must be below 1, got {tol!r}")
         try:
@@ -235,8 +236,8 @@ class WirePlateChannel(FieldSource):
             raise ValueError(f"wire_radius ({a} m) must be below plate_distance ({s} m)")
         if (self.n_wires > 1 or self.periodic) and 2 * a >= sp:
             raise ValueError(f"wire_spacing ({sp} m) must exceed the wire diameter ({2 * a} m)")
-        self.origin = as_vector(origin, "origin")
-        self.length = None if length is None else as_number(length, "length", positive=True)
+        self.origin = _validate.vector(origin, "origin")
+        self.length = None if length is None else _validate.positive(length, "length")
         self.beta = beta = math.pi / (2.0 * s)
         # a wire beta |dy| away adds about 2 exp(-beta |dy|) of its own potential
         # (and of the mean field): wires beyond ln(2/tol) are left out

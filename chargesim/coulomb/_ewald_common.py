@@ -413,6 +413,12 @@ def _pair_sweep(k, bdx, bdy, bdz, br2, bq, alpha, table):
     return fx, fy, fz, p
 
 
+
+@numba.njit(inline="always")
+def _pair_buffers(cap):
+    """Per-target gather buffers of the real-space sum: dx, dy, dz, r^2, q, source index."""
+    return np.empty(cap), np.empty(cap), np.empty(cap), np.empty(cap), np.empty(cap), np.empty(cap, np.int64)
+
 @numba.njit(inline="always")
 def _real_chunk(chunk, tpoints, torder, self_targets, use_radii, rads, trad, qs, alpha, rc, table,
                  points, order, start, shape, width, origin, box, periodic, reach,
@@ -431,12 +437,7 @@ def _real_chunk(chunk, tpoints, torder, self_targets, use_radii, rads, trad, qs,
     hi = np.empty(nbuf, np.int64)
     sh = np.empty((nbuf, 3))
     cap = 64
-    bdx = np.empty(cap)
-    bdy = np.empty(cap)
-    bdz = np.empty(cap)
-    br2 = np.empty(cap)
-    bq = np.empty(cap)
-    bs = np.empty(cap, np.int64)
+    bdx, bdy, bdz, br2, bq, bs = _pair_buffers(cap)
     for t in range(chunk * _CHUNK, min(m, (chunk + 1) * _CHUNK)):
         i = torder[t]
         x, y, z = tpoints[0, t], tpoints[1, t], tpoints[2, t]
@@ -444,12 +445,7 @@ def _real_chunk(chunk, tpoints, torder, self_targets, use_radii, rads, trad, qs,
         tot = cells.segment_total(nseg, lo, hi)
         if tot > cap:
             cap = 2 * tot
-            bdx = np.empty(cap)
-            bdy = np.empty(cap)
-            bdz = np.empty(cap)
-            br2 = np.empty(cap)
-            bq = np.empty(cap)
-            bs = np.empty(cap, np.int64)
+            bdx, bdy, bdz, br2, bq, bs = _pair_buffers(cap)
         k = 0
         nzero = 0
         for g in range(nseg):

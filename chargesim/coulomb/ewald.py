@@ -133,6 +133,13 @@ def _rows(nvec):
 
 
 @numba.njit(inline="always")
+def _phase_buffers(nmax):
+    """cos and sin buffers of one point's phases along x, y, z (see _phases)."""
+    return (np.empty(2 * nmax[0] + 1), np.empty(2 * nmax[0] + 1), np.empty(2 * nmax[1] + 1),
+            np.empty(2 * nmax[1] + 1), np.empty(2 * nmax[2] + 1), np.empty(2 * nmax[2] + 1))
+
+
+@numba.njit(inline="always")
 def _phases(x, y, z, box, nmax, cx, sx, cy, sy, cz, sz):
     # cos and sin of 2 pi n x / L for n = -nmax..nmax on each axis, by direct
     # evaluation (a recurrence would accumulate rounding over many n)
@@ -161,12 +168,7 @@ def _sf_row(qj, ar, ai, cz, sz, z0, lo, hi, s_re, s_im):
 @numba.njit(inline="always")
 def _sf_chunk(c, px, py, pz, q, box, rows, nk, nmax, nchunks, s_re, s_im):
     n = px.size
-    cx = np.empty(2 * nmax[0] + 1)
-    sx = np.empty(2 * nmax[0] + 1)
-    cy = np.empty(2 * nmax[1] + 1)
-    sy = np.empty(2 * nmax[1] + 1)
-    cz = np.empty(2 * nmax[2] + 1)
-    sz = np.empty(2 * nmax[2] + 1)
+    cx, sx, cy, sy, cz, sz = _phase_buffers(nmax)
     nrow = rows.shape[0]
     for j in range(c * n // nchunks, (c + 1) * n // nchunks):
         _phases(px[j], py[j], pz[j], box, nmax, cx, sx, cy, sy, cz, sz)
@@ -218,12 +220,7 @@ def _target_row(ar, ai, cz, sz, z0, lo, hi, s_re, s_im, coef, kx, ky, kz):
 @numba.njit(inline="always")
 def _targets_chunk(ch, tx, ty, tz, box, rows, nk, nmax, coef, s_re, s_im, kx, ky, kz, ex_out, ey_out, ez_out,
                    phi_out):
-    cx = np.empty(2 * nmax[0] + 1)
-    sx = np.empty(2 * nmax[0] + 1)
-    cy = np.empty(2 * nmax[1] + 1)
-    sy = np.empty(2 * nmax[1] + 1)
-    cz = np.empty(2 * nmax[2] + 1)
-    sz = np.empty(2 * nmax[2] + 1)
+    cx, sx, cy, sy, cz, sz = _phase_buffers(nmax)
     nrow = rows.shape[0]
     for i in range(ch * _CHUNK, min(tx.size, (ch + 1) * _CHUNK)):
         _phases(tx[i], ty[i], tz[i], box, nmax, cx, sx, cy, sy, cz, sz)

@@ -413,11 +413,11 @@ def _pair_sweep(k, bdx, bdy, bdz, br2, bq, alpha, table):
     return fx, fy, fz, p
 
 
-
 @numba.njit(inline="always")
 def _pair_buffers(cap):
     """Per-target gather buffers of the real-space sum: dx, dy, dz, r^2, q, source index."""
     return np.empty(cap), np.empty(cap), np.empty(cap), np.empty(cap), np.empty(cap), np.empty(cap, np.int64)
+
 
 @numba.njit(inline="always")
 def _real_chunk(chunk, tpoints, torder, self_targets, use_radii, rads, trad, qs, alpha, rc, table,

@@ -140,6 +140,18 @@ def _phase_buffers(nmax):
 
 
 @numba.njit(inline="always")
+def _row_phase(rows, r, nrow, nk, nmax, cx, sx, cy, sy):
+    """exp(i(k1 x + k2 y)) of k-vector row r (real, imaginary part), its first
+    z index into the phase buffers and its range [lo, hi) of k-vectors."""
+    a = rows[r, 0] + nmax[0]
+    b = rows[r, 1] + nmax[1]
+    ar = cx[a] * cy[b] - sx[a] * sy[b]
+    ai = cx[a] * sy[b] + sx[a] * cy[b]
+    hi = rows[r + 1, 3] if r + 1 < nrow else nk
+    return ar, ai, rows[r, 2] + nmax[2], rows[r, 3], hi
+
+
+@numba.njit(inline="always")
 def _phases(x, y, z, box, nmax, cx, sx, cy, sy, cz, sz):
     # cos and sin of 2 pi n x / L for n = -nmax..nmax on each axis, by direct
     # evaluation (a recurrence would accumulate rounding over many n)
@@ -174,13 +186,8 @@ def _sf_chunk(c, px, py, pz, q, box, rows, nk, nmax, nchunks, s_re, s_im):
         _phases(px[j], py[j], pz[j], box, nmax, cx, sx, cy, sy, cz, sz)
         qj = q[j]
         for r in range(nrow):
-            a = rows[r, 0] + nmax[0]
-            b = rows[r, 1] + nmax[1]
-            # exp(i(k1 x + k2 y))
-            ar = cx[a] * cy[b] - sx[a] * sy[b]
-            ai = cx[a] * sy[b] + sx[a] * cy[b]
-            hi = rows[r + 1, 3] if r + 1 < nrow else nk
-            _sf_row(qj, ar, ai, cz, sz, rows[r, 2] + nmax[2], rows[r, 3], hi, s_re[c], s_im[c])
+            ar, ai, z0, lo, hi = _row_phase(rows, r, nrow, nk, nmax, cx, sx, cy, sy)
+            _sf_row(qj, ar, ai, cz, sz, z0, lo, hi, s_re[c], s_im[c])
 
 
 @numba.njit(parallel=True, cache=True)
@@ -229,13 +236,8 @@ def _targets_chunk(ch, tx, ty, tz, box, rows, nk, nmax, coef, s_re, s_im, kx, ky
         fy = 0.0
         fz = 0.0
         for r in range(nrow):
-            a = rows[r, 0] + nmax[0]
-            b = rows[r, 1] + nmax[1]
-            ar = cx[a] * cy[b] - sx[a] * sy[b]
-            ai = cx[a] * sy[b] + sx[a] * cy[b]
-            hi = rows[r + 1, 3] if r + 1 < nrow else nk
-            dp, dx, dy, dz = _target_row(ar, ai, cz, sz, rows[r, 2] + nmax[2], rows[r, 3], hi, s_re, s_im,
-                                         coef, kx, ky, kz)
+            ar, ai, z0, lo, hi = _row_phase(rows, r, nrow, nk, nmax, cx, sx, cy, sy)
+            dp, dx, dy, dz = _target_row(ar, ai, cz, sz, z0, lo, hi, s_re, s_im, coef, kx, ky, kz)
             p += dp
             fx += dx
             fy += dy

@@ -173,6 +173,21 @@ def _indices(i0, k, p, out):
         out[a] = j + k if j < 0 else j
 
 
+
+@numba.njit(inline="always")
+def _stencil(x, y, z, box, k1, k2, k3, p, wx, wy, wz, dx, dy, dz, ia, ib, ic):
+    """B-spline weights (wx, wy, wz), their derivatives (dx, dy, dz) and the
+    wrapped mesh indices (ia, ib, ic) of the p x p x p stencil of a point."""
+    ix, fx = _base(x, box[0], k1)
+    iy, fy = _base(y, box[1], k2)
+    iz, fz = _base(z, box[2], k3)
+    _spline(fx, p, wx, dx)
+    _spline(fy, p, wy, dy)
+    _spline(fz, p, wz, dz)
+    _indices(ix, k1, p, ia)
+    _indices(iy, k2, p, ib)
+    _indices(iz, k3, p, ic)
+
 @numba.njit(cache=True)
 def _spread_range(px, py, pz, q, box, shape, p, visit, lo, hi, mesh):
     k1, k2, k3 = shape[0], shape[1], shape[2]
@@ -185,15 +200,7 @@ def _spread_range(px, py, pz, q, box, shape, p, visit, lo, hi, mesh):
     ic = np.empty(p, np.int64)
     for s in range(lo, hi):
         i = visit[s]
-        ix, tx = _base(px[i], box[0], k1)
-        iy, ty = _base(py[i], box[1], k2)
-        iz, tz = _base(pz[i], box[2], k3)
-        _spline(tx, p, wx, dw)
-        _spline(ty, p, wy, dw)
-        _spline(tz, p, wz, dw)
-        _indices(ix, k1, p, ia)
-        _indices(iy, k2, p, ib)
-        _indices(iz, k3, p, ic)
+        _stencil(px[i], py[i], pz[i], box, k1, k2, k3, p, wx, wy, wz, dw, dw, dw, ia, ib, ic)
         qi = q[i]
         for a in range(p):
             qa = qi * wx[a]
@@ -246,15 +253,7 @@ def _interp_chunk(ch, tx, ty, tz, box, shape, p, phi_mesh, ex, ey, ez, phi):
     ib = np.empty(p, np.int64)
     ic = np.empty(p, np.int64)
     for i in range(ch * 256, min(m, (ch + 1) * 256)):
-        ix, fx = _base(tx[i], box[0], k1)
-        iy, fy = _base(ty[i], box[1], k2)
-        iz, fz = _base(tz[i], box[2], k3)
-        _spline(fx, p, wx, dx)
-        _spline(fy, p, wy, dy)
-        _spline(fz, p, wz, dz)
-        _indices(ix, k1, p, ia)
-        _indices(iy, k2, p, ib)
-        _indices(iz, k3, p, ic)
+        _stencil(tx[i], ty[i], tz[i], box, k1, k2, k3, p, wx, wy, wz, dx, dy, dz, ia, ib, ic)
         v = 0.0
         gx = 0.0
         gy = 0.0

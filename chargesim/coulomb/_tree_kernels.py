@@ -477,7 +477,7 @@ def _push(tag, val, n, t, v):
 
 
 @numba.njit(cache=True)
-def _traverse(snd, sfirst, snchild, tnd, tfirst, tnchild, tn, ntn, theta, direct_max, pa, pb, lists, counts):
+def _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, theta, direct_max, pa, pb, lists, counts):
     """Dual walk of one target group's nodes ``tn[:ntn]`` against the source tree.
 
     Pairs (target node A, source node B) start at (each top node of the
@@ -633,7 +633,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
         dmono = np.empty(ncl)
         for g in range(ga, gb):
             tn, counts, ntn = _group_nodes(tfirst, tnchild, g0s[g], g1s[g], tn, counts)
-            pa, pb, l0, l1, n0, n1 = _traverse(snd, sfirst, snchild, tnd, tfirst, tnchild, tn, ntn, theta,
+            pa, pb, l0, l1, n0, n1 = _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, theta,
                                                direct_max, pa, pb, lists, counts)
             lists = (l0, l1)
             if loc.shape[0] < ntn:

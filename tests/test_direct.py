@@ -2,6 +2,8 @@
 
 Sources are named beside each check (see REFERENCES.md of the project).
 """
+import warnings
+
 import numpy as np
 import pytest
 
@@ -206,6 +208,8 @@ GOOD_Q = np.ones(3)
     [
         (dict(positions=[[0, 0, 0], [np.nan, 0, 0]], charges=[1, 1]), "positions holds a non-finite value .* index 1"),
         (dict(positions=[[0, 0, 0], [1, np.inf, 0]], charges=[1, 1]), "positions .* index 1"),
+        # +inf and -inf in one row: their sum is NaN, the check must still name the row
+        (dict(positions=[[0, 0, 0], [0, 0, 1], [np.inf, -np.inf, 0]], charges=[1, 1, 1]), "positions .* index 2"),
         (dict(positions=GOOD_POS, charges=[1, np.nan, 1]), "charges holds a non-finite value .* index 1"),
         (dict(positions=np.zeros((3, 2)), charges=GOOD_Q), r"positions must have shape \(N, 3\)"),
         (dict(positions=GOOD_POS, charges=[1, 2]), r"charges must have shape \(3,\)"),
@@ -222,6 +226,16 @@ GOOD_Q = np.ones(3)
 def test_bad_input_names_the_argument(kwargs, fragment):
     with pytest.raises(ValueError, match=fragment):
         chargesim.field(**kwargs)
+
+
+def test_huge_finite_positions_pass_the_finiteness_check():
+    # the check's fast path sums the coordinates; a sum that overflows to inf
+    # must fall back to the element test and accept the finite points
+    pos = np.array([[1e308, 1e308, 0.0], [1e308, -1e308, 1e308], [-1e308, 1e308, 1e308]])
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # the overflow of the fast path stays silent
+        f = chargesim.field(pos, [1.0, 1.0, 1.0], method="direct")
+    assert f.shape == (3, 3)
 
 
 def test_coincident_points_are_refused_with_indices():

@@ -468,6 +468,10 @@ class Simulation:
         if t_end is not None and not math.isfinite(float(t_end)):
             raise ValueError(f"t_end must be a finite time in s, got {t_end!r}")
         rec = _NullRecorder() if recorder is None else recorder
+        # with nobody recording, the diagnostics and snapshots are not made
+        # (measured at N = 1e5: a diagnostics row costs 6 ms, a tenth of a step)
+        frame_every, diagnostics_every, checkpoint_every = (
+            (0, 0, 0) if recorder is None else (self.frame_every, self.diagnostics_every, self.checkpoint_every))
         if id(rec) not in self._started:
             rec.start(self.info())
             self._started.add(id(rec))
@@ -496,11 +500,11 @@ class Simulation:
                 rec.deposits(deposits)
             if escapes is not None:
                 rec.escapes(escapes)
-            if self.frame_every and self.step % self.frame_every == 0:
+            if frame_every and self.step % frame_every == 0:
                 rec.frame(self.step, self.time, self.system.state)
-            if self.diagnostics_every and self.step % self.diagnostics_every == 0:
+            if diagnostics_every and self.step % diagnostics_every == 0:
                 rec.diagnostics(self.step, self.time, self.diagnostics())
-            if self.checkpoint_every and self.step % self.checkpoint_every == 0:
+            if checkpoint_every and self.step % checkpoint_every == 0:
                 rec.checkpoint(self.snapshot())
         summary = self.summary()
         # the recorder also gets the live end state (for its /final record)

@@ -186,12 +186,18 @@ def test_tiny_cloud():
     e, p = tree.evaluate(pos, q, None, None, accuracy=1e-3)
     assert _err(e, e_ref) <= 1e-3
     assert _err(p, p_ref) <= 1e-3
-    # far probes see the cloud as one point charge (exact to ~1e-12 relative)
+    # far probes see the cloud as one point charge. Their sums are near sums:
+    # exact to round-off in double precision (asked accuracy below
+    # tree.SINGLE_MIN_ACCURACY); in single precision each pair carries its
+    # coordinates' rounding, 6e-8 relative (2^-24), here all alike, and the
+    # net charge is ~1/50 of sum|q|: 1e-5 bounds it, 100x below the asked 1e-3
     tgt = np.array([[3.0, -0.5, 0.25], [1.0, 2.5, 0.25]])
-    e, _ = tree.evaluate(pos, q, tgt, None)
     d = tgt - pos[0]
     exact = q.sum() * d / np.linalg.norm(d, axis=1)[:, None] ** 3
+    e, _ = tree.evaluate(pos, q, tgt, None, accuracy=0.1 * tree.SINGLE_MIN_ACCURACY)
     np.testing.assert_allclose(e, exact, rtol=1e-9, atol=1e-9 * np.abs(exact).max())
+    e, _ = tree.evaluate(pos, q, tgt, None, accuracy=1e-3)
+    np.testing.assert_allclose(e, exact, rtol=1e-5, atol=1e-5 * np.abs(exact).max())
 
 
 def test_points_on_a_plane():
@@ -237,6 +243,34 @@ def test_coincident_points_raise():
         tree.evaluate(pos, np.ones(3000), None, None)
     with pytest.raises(ValueError, match="target 1 coincides with source particle 5"):
         tree.evaluate(pos, np.ones(3000), np.array([[2.0, 2.0, 2.0], pos[5]]), None)
+
+
+def test_single_precision_near_sums_keep_close_pairs_and_any_units():
+    # reference: direct sum. Near sums of point charges run in single
+    # precision from tree.SINGLE_MIN_ACCURACY up; pairs closer than the
+    # rounding of their coordinates allows are summed again in double
+    # precision. Dimers 1e-9 of the box apart (each member's field dominated
+    # by its partner, lost entirely if rounded), and the same cloud in units
+    # far outside single precision's range (1e-30 m, 1e20 C; 1e25 m, 1e-25 C)
+    rng = _rng(9)
+    n = 3000
+    centres = rng.random((n // 2, 3))
+    offs = rng.normal(size=(n // 2, 3)) * 1e-9
+    pos = np.concatenate([centres, centres + offs])
+    q = _mixed(rng, n)
+    idx = np.sort(rng.choice(n, 200, replace=False))
+    e_ref, p_ref = _self_reference(pos, q, idx)
+    e, p = tree.evaluate(pos, q, None, None, accuracy=1e-3)
+    assert _err(e[idx], e_ref) <= 1e-3
+    assert _err(p[idx], p_ref) <= 1e-3
+    # the dimer field is the partner's to 1e-6: single precision would give ~100 % error
+    assert _err(e[idx], e_ref) <= 1e-6
+    for length, charge in ((1e-30, 1e20), (1e25, 1e-25)):
+        # (the rounding differs with the scale: results agree to single precision)
+        e2, p2 = tree.evaluate(pos * length, q * charge, None, None, accuracy=1e-3)
+        assert np.all(np.isfinite(e2)) and np.all(np.isfinite(p2))
+        assert _err(e2[idx], e_ref * (charge / length**2)) <= 1e-6
+        assert _err(p2[idx], p_ref * (charge / length)) <= 1e-6
 
 
 def test_front_door_potential_energy():

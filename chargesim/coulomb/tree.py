@@ -29,6 +29,13 @@ a dual walk pairs its target nodes A with source nodes B:
 - otherwise the larger of A and B is opened.
 
 No pair is expanded where a target sphere could overlap a source sphere.
+From an asked accuracy of ``SINGLE_MIN_ACCURACY`` up, the near sums of point
+charges run in single precision, twice as fast: coordinates relative to the
+target leaf's centre and charges, both scaled to order 1, summed in single
+precision over runs of 128 pairs and in double precision over the runs.
+Each pair then carries a relative rounding of ~1e-7; a target with a pair
+too close for that (``SINGLE_CLOSE``), or with an unexpected zero distance,
+is summed again in double precision. Finite radii keep double precision.
 (An order-5 multipole evaluated per target for pairs between the two cases
 was tried and dropped: at equal measured error it was no faster.)
 
@@ -101,6 +108,17 @@ THETA_REF = 0.68
 #: error falls as theta^7.6 - theta^8.1 over that range (the bound's
 #: theta^ORDER, plus the random signs of many pairs).
 THETA_EXPONENT = 1.0 / 8.0
+#: Asked accuracies from which the near sums of point charges run in single
+#: precision (float32 coordinates relative to the target leaf's centre:
+#: 2.2x the pair rate of double precision on the reference machine). Their
+#: rounding adds a relative error of ~1e-6 (measured), 100x below this.
+SINGLE_MIN_ACCURACY = 1e-4
+#: A target is summed again in double precision when one of its near pairs
+#: is closer than SINGLE_CLOSE / accuracy x the farthest near coordinate from
+#: the leaf's centre: there the rounding of the coordinates (2^-24 of it,
+#: twice, doubled again in the field's 1/r^2) could reach a tenth of the
+#: asked accuracy for that pair: 4 x 2^-24 / r <= accuracy / 10.
+SINGLE_CLOSE = 40.0 * 2.0**-24
 #: Range of the opening angle: below 0.1 the tree degenerates into the direct
 #: sum, above 0.75 the expansions converge too slowly to be controlled.
 THETA_RANGE = (0.1, 0.75)
@@ -265,6 +283,8 @@ class Tree:
         phi = np.empty(m)
         nzero = np.empty(m, np.int64)
         nb = _n_blocks(g0.size)
+        acc = float(accuracy)
+        single_rel = SINGLE_CLOSE / acc if acc >= SINGLE_MIN_ACCURACY else 0.0
         old = numba.get_parallel_chunksize()
         numba.set_parallel_chunksize(1)
         try:
@@ -273,7 +293,7 @@ class Tree:
                             tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0, g1,
                             theta, int(DIRECT_MAX), _DIDX, _DCOEF, _M2L_ROWS, _UNFOLD, _DERIV,
                             _LOCAL_SCALE, _GRAD_ROWS,
-                            _SHIFT_IDX, _SHIFT_COEF, _PARENT, _AXIS, nb, ex, ey, ez, phi, nzero)
+                            _SHIFT_IDX, _SHIFT_COEF, _PARENT, _AXIS, nb, single_rel, ex, ey, ez, phi, nzero)
         finally:
             numba.set_parallel_chunksize(old)
         allowed = 1 if (self_targets and not use_radii) else 0

@@ -233,25 +233,57 @@ def leaf_moments(start, end, nchild, nd, x, y, z, q, parent, axis, raw):
 
 
 @numba.njit(cache=True)
-def upward_moments(first, nchild, nd, raw, parent, axis, shift_idx, shift_coef):
-    """Raw moments of inner nodes from their children's (M2M), bottom up.
+def _levels(first, nchild):
+    """Inner nodes bucketed by depth: (nodes, offsets), level d in nodes[off[d]:off[d + 1]]."""
+    n = first.size
+    depth = np.zeros(n, np.int64)
+    for k in range(n):  # children are stored after their parent
+        for ch in range(first[k], first[k] + nchild[k]):
+            depth[ch] = depth[k] + 1
+    top = 0
+    for k in range(n):
+        top = max(top, depth[k])
+    off = np.zeros(top + 2, np.int64)
+    for k in range(n):
+        if nchild[k] != 0:
+            off[depth[k] + 1] += 1
+    for d in range(top + 1):
+        off[d + 1] += off[d]
+    fill = off[:-1].copy()
+    nodes = np.empty(off[-1], np.int64)
+    for k in range(n):
+        if nchild[k] != 0:
+            nodes[fill[depth[k]]] = k
+            fill[depth[k]] += 1
+    return nodes, off
 
-    Children are stored after their parent, so one pass over the nodes from
-    the last to the first sees every child before its parent. The shift is
-    the binomial theorem: A'_m = sum_{k <= m} C(m, k) A_k d^(m - k), d the
-    child's centre minus the parent's.
-    """
+
+@numba.njit(parallel=True, cache=True)
+def _shift_up(nodes, first, nchild, nd, raw, parent, axis, shift_idx, shift_coef):
     ncomp = raw.shape[1]
-    dm = np.empty(ncomp)
-    for k in range(nd.shape[0] - 1, -1, -1):
-        if nchild[k] == 0:
-            continue
+    for u in numba.prange(nodes.size):
+        k = nodes[u]
+        dm = np.empty(ncomp)
         for c in range(ncomp):
             raw[k, c] = 0.0
         for ch in range(first[k], first[k] + nchild[k]):
             _monomials(nd[ch, 0] - nd[k, 0], nd[ch, 1] - nd[k, 1], nd[ch, 2] - nd[k, 2], 1.0, parent, axis, dm)
             for r in range(shift_coef.size):
                 raw[k, shift_idx[r, 0]] += shift_coef[r] * raw[ch, shift_idx[r, 1]] * dm[shift_idx[r, 2]]
+
+
+def upward_moments(first, nchild, nd, raw, parent, axis, shift_idx, shift_coef):
+    """Raw moments of inner nodes from their children's (M2M), bottom up.
+
+    Level by level from the deepest, the nodes of a level in parallel (each
+    writes its own row; 0.31 s serial at 1e6 uniform). The shift is the
+    binomial theorem: A'_m = sum_{k <= m} C(m, k) A_k d^(m - k), d the
+    child's centre minus the parent's. Each node's sum runs over its
+    children in order: results do not depend on the thread count.
+    """
+    nodes, off = _levels(first, nchild)
+    for d in range(off.size - 2, -1, -1):
+        _shift_up(nodes[off[d]:off[d + 1]], first, nchild, nd, raw, parent, axis, shift_idx, shift_coef)
 
 
 @numba.njit(cache=True)

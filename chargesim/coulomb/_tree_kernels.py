@@ -376,7 +376,7 @@ def _near_points(xi, yi, zi, sx, sy, sz, sq, a, b):
     return ax, ay, az, p, c
 
 
-@numba.njit(inline="always", fastmath=_FM, error_model="numpy")
+@numba.njit(fastmath=_FM, error_model="numpy", cache=True)
 def _near_points32(xi, yi, zi, sx, sy, sz, sq, n, close2):
     """:func:`_near_points` with each pair in single precision (coordinates
     relative to a nearby centre, scaled to order 1), summed in single
@@ -687,14 +687,15 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
 
     ``single_rel`` > 0: the near sums of point charges run in single
     precision (twice the speed), on coordinates relative to the target
-    leaf's centre. Rounding them moves a pair by up to ~1.2e-7 x the
-    farthest near coordinate X; a target with a pair closer than
-    ``single_rel`` x X, or an unexpected zero distance, is summed again in
-    double precision. 0: double precision throughout.
+    leaf's centre. Rounding them moves a pair at distance r by up to about
+    2^-24 (2 |x| + r), |x| the target's distance from the centre (the
+    source's is at most |x| + r); a target with a pair closer than
+    ``single_rel`` x |x|, or an unexpected zero distance, is summed again
+    in double precision. 0: double precision throughout.
     """
     ng = g0s.size
     ncl = local_scale.size
-    close2 = np.float32(single_rel * single_rel)
+    rel2 = single_rel * single_rel
     nred = mm.shape[1]
     for blk in numba.prange(n_blocks):
         ga = (blk * ng) // n_blocks
@@ -867,8 +868,13 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                             else:
                                 c -= 1
                     elif single:
-                        gx, gy, gz, gp, c = _near_points32(np.float32((xi - cax) * ifar), np.float32((yi - cay) * ifar),
-                                                           np.float32((zi - caz) * ifar), fbx, fby, fbz, fbq, tot, close2)
+                        ux = (xi - cax) * ifar
+                        uy = (yi - cay) * ifar
+                        uz = (zi - caz) * ifar
+                        # the floor counts a zero distance at the very centre
+                        close2 = np.float32(max(rel2 * (ux * ux + uy * uy + uz * uz), 1e-30))
+                        gx, gy, gz, gp, c = _near_points32(np.float32(ux), np.float32(uy), np.float32(uz),
+                                                           fbx, fby, fbz, fbq, tot, close2)
                         if c != expect:
                             fx, fy, fz, pp, c = _near_points(xi, yi, zi, bx, by, bz, bq, 0, tot)
                         else:

@@ -114,10 +114,11 @@ THETA_EXPONENT = 1.0 / 8.0
 #: rounding adds a relative error of ~1e-6 (measured), 100x below this.
 SINGLE_MIN_ACCURACY = 1e-4
 #: A target is summed again in double precision when one of its near pairs
-#: is closer than SINGLE_CLOSE / accuracy x the farthest near coordinate from
-#: the leaf's centre: there the rounding of the coordinates (2^-24 of it,
-#: twice, doubled again in the field's 1/r^2) could reach a tenth of the
-#: asked accuracy for that pair: 4 x 2^-24 / r <= accuracy / 10.
+#: is closer than SINGLE_CLOSE / accuracy x the target's distance |x| from
+#: the leaf's centre: there the rounding of the coordinates (2^-24 of each,
+#: the source's at most |x| + r from the centre, doubled again in the
+#: field's 1/r^2) could reach a tenth of the asked accuracy for that pair:
+#: 4 x 2^-24 |x| / r <= accuracy / 10.
 SINGLE_CLOSE = 40.0 * 2.0**-24
 #: Range of the opening angle: below 0.1 the tree degenerates into the direct
 #: sum, above 0.75 the expansions converge too slowly to be controlled.

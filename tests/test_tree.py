@@ -245,7 +245,8 @@ def test_coincident_points_raise():
         tree.evaluate(pos, np.ones(3000), np.array([[2.0, 2.0, 2.0], pos[5]]), None)
 
 
-def test_single_precision_near_sums_keep_close_pairs_and_any_units():
+@pytest.mark.parametrize("with_radii", [False, True])
+def test_single_precision_near_sums_keep_close_pairs_and_any_units(with_radii):
     # reference: direct sum. Near sums of point charges run in single
     # precision from tree.SINGLE_MIN_ACCURACY up; pairs closer than the
     # rounding of their coordinates allows are summed again in double
@@ -260,14 +261,18 @@ def test_single_precision_near_sums_keep_close_pairs_and_any_units():
     q = _mixed(rng, n)
     idx = np.sort(rng.choice(n, 200, replace=False))
     e_ref, p_ref = _self_reference(pos, q, idx)
-    e, p = tree.evaluate(pos, q, None, None, accuracy=1e-3)
+    # spheres of 1e-12 (the sphere kernel; every pair still outside): the
+    # same sums, less each sphere's own potential, which the tree leaves out
+    radii = np.full(n, 1e-12) if with_radii else None
+    e, p = tree.evaluate(pos, q, None, radii, accuracy=1e-3)
     assert _err(e[idx], e_ref) <= 1e-3
     assert _err(p[idx], p_ref) <= 1e-3
     # the dimer field is the partner's to 1e-6: single precision would give ~100 % error
     assert _err(e[idx], e_ref) <= 1e-6
     for length, charge in ((1e-30, 1e20), (1e25, 1e-25)):
         # (the rounding differs with the scale: results agree to single precision)
-        e2, p2 = tree.evaluate(pos * length, q * charge, None, None, accuracy=1e-3)
+        e2, p2 = tree.evaluate(pos * length, q * charge, None, None if radii is None else radii * length,
+                               accuracy=1e-3)
         assert np.all(np.isfinite(e2)) and np.all(np.isfinite(p2))
         assert _err(e2[idx], e_ref * (charge / length**2)) <= 1e-6
         assert _err(p2[idx], p_ref * (charge / length)) <= 1e-6

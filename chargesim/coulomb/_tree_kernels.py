@@ -455,6 +455,56 @@ def _near_spheres(xi, yi, zi, ri, sx, sy, sz, sq, sr, a, b):
     return ax, ay, az, p, c
 
 
+@numba.njit(fastmath=_FM, error_model="numpy", cache=True)
+def _near_spheres32(xi, yi, zi, ri, sx, sy, sz, sq, sr, n, close2):
+    """:func:`_near_spheres` in single precision, as :func:`_near_points32`
+    (scaled coordinates, radii and charges; runs summed in double; the count
+    of pairs closer than sqrt(``close2``)). A pair at zero distance adds
+    nothing here: it is the target itself (whose own potential is then left
+    out) or, counted, sends the target back to double precision."""
+    zero = np.float32(0.0)
+    one = np.float32(1.0)
+    half = np.float32(0.5)
+    three = np.float32(3.0)
+    ax = 0.0
+    ay = 0.0
+    az = 0.0
+    p = 0.0
+    c = 0
+    for j0 in range(0, n, _RUN32):
+        bx = zero
+        by = zero
+        bz = zero
+        bp = zero
+        for j in range(j0, min(j0 + _RUN32, n)):
+            dx = xi - sx[j]
+            dy = yi - sy[j]
+            dz = zi - sz[j]
+            r2 = dx * dx + dy * dy + dz * dz
+            live = r2 > zero
+            aa = max(sr[j], ri)
+            a2 = aa * aa
+            d = max(r2, a2)
+            d = d if live else one
+            invd = one / np.sqrt(d)
+            inv3 = invd * invd * invd
+            inside = r2 < a2
+            pot = half * (three * a2 - r2) * inv3 if inside else invd
+            s3 = sq[j] * inv3
+            s3 = s3 if live else zero
+            pot = sq[j] * pot if live else zero
+            bx += s3 * dx
+            by += s3 * dy
+            bz += s3 * dz
+            bp += pot
+            c += 1 if r2 < close2 else 0
+        ax += np.float64(bx)
+        ay += np.float64(by)
+        az += np.float64(bz)
+        p += np.float64(bp)
+    return ax, ay, az, p, c
+
+
 @numba.njit(inline="always", fastmath=_FM, error_model="numpy")
 def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef, deriv, rows, unfold, local_scale,
                         gk, loc):
@@ -701,7 +751,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
         ga = (blk * ng) // n_blocks
         gb = ((blk + 1) * ng) // n_blocks
         nb = np.empty((5, 4096), np.float64)
-        nf = np.empty((4, 4096), np.float32)
+        nf = np.empty((5, 4096), np.float32)
         pa = np.empty(1024, np.int64)
         pb = np.empty(1024, np.int64)
         lists = ((np.empty(1024, np.int64), np.empty(1024, np.int64)),
@@ -796,7 +846,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                 cax = tnd[ta, 0]
                 cay = tnd[ta, 1]
                 caz = tnd[ta, 2]
-                single = single_rel > 0.0 and not use_radii
+                single = single_rel > 0.0
                 fscale = 1.0
                 pscale = 1.0
                 ifar = 1.0
@@ -805,7 +855,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                     # farthest one, charges over the largest: all of order 1,
                     # so single precision neither overflows nor underflows
                     if nf.shape[1] < tot:
-                        nf = np.empty((4, nb.shape[1]), np.float32)
+                        nf = np.empty((5, nb.shape[1]), np.float32)
                     far = 0.0
                     qmax = 0.0
                     for j in range(tot):
@@ -822,12 +872,15 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                         nf[1, j] = (by[j] - cay) * ifar
                         nf[2, j] = (bz[j] - caz) * ifar
                         nf[3, j] = bq[j] * iq
+                        if use_radii:
+                            nf[4, j] = br[j] * ifar
                     pscale = qmax * ifar
                     fscale = pscale * ifar
                 fbx = nf[0]
                 fby = nf[1]
                 fbz = nf[2]
                 fbq = nf[3]
+                fbr = nf[4]
                 expect = 1 if self_targets else 0
                 use_loc = has[a]
                 if use_loc:
@@ -853,7 +906,32 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                             ax -= grd[0, c] * tm[c]
                             ay -= grd[1, c] * tm[c]
                             az -= grd[2, c] * tm[c]
-                    if use_radii:
+                    dbl = not single
+                    if single:
+                        ux = (xi - cax) * ifar
+                        uy = (yi - cay) * ifar
+                        uz = (zi - caz) * ifar
+                        # the floor counts a zero distance at the very centre
+                        close2 = np.float32(max(rel2 * (ux * ux + uy * uy + uz * uz), 1e-30))
+                        if use_radii:
+                            gx, gy, gz, gp, c = _near_spheres32(np.float32(ux), np.float32(uy), np.float32(uz),
+                                                                np.float32(tr[i] * ifar), fbx, fby, fbz, fbq, fbr,
+                                                                tot, close2)
+                        else:
+                            gx, gy, gz, gp, c = _near_points32(np.float32(ux), np.float32(uy), np.float32(uz),
+                                                               fbx, fby, fbz, fbq, tot, close2)
+                        if c == expect:
+                            # the target itself (self_targets) added nothing
+                            fx = gx * fscale
+                            fy = gy * fscale
+                            fz = gz * fscale
+                            pp = gp * pscale
+                            # as the double sums report it: the self pair of
+                            # points counted, of spheres taken out
+                            c = 0 if use_radii else expect
+                        else:
+                            dbl = True
+                    if dbl and use_radii:
                         ri = tr[i]
                         fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, tot)
                         if self_targets:
@@ -867,22 +945,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                                 pp -= 1.5 * sq[i] / ri
                             else:
                                 c -= 1
-                    elif single:
-                        ux = (xi - cax) * ifar
-                        uy = (yi - cay) * ifar
-                        uz = (zi - caz) * ifar
-                        # the floor counts a zero distance at the very centre
-                        close2 = np.float32(max(rel2 * (ux * ux + uy * uy + uz * uz), 1e-30))
-                        gx, gy, gz, gp, c = _near_points32(np.float32(ux), np.float32(uy), np.float32(uz),
-                                                           fbx, fby, fbz, fbq, tot, close2)
-                        if c != expect:
-                            fx, fy, fz, pp, c = _near_points(xi, yi, zi, bx, by, bz, bq, 0, tot)
-                        else:
-                            fx = gx * fscale
-                            fy = gy * fscale
-                            fz = gz * fscale
-                            pp = gp * pscale
-                    else:
+                    elif dbl:
                         fx, fy, fz, pp, c = _near_points(xi, yi, zi, bx, by, bz, bq, 0, tot)
                     ex[i] = ax + fx
                     ey[i] = ay + fy

@@ -74,12 +74,11 @@ OPTIONS = {"accuracy": 1e-3}
 #: Particles above which the tree beats the direct sum on the reference
 #: machine (2-core AMD EPYC, shared), field + potential at every particle,
 #: accuracy 1e-3, uniform mixed-sign charges; measured by
-#: ``benchmarks/bench_tree.py --crossover-only``: direct/tree time 0.43 at
-#: N = 1000, 1.03 at 1500, 1.02 at 2000, 1.41 at 3000, 1.53 at 5000, 1.9
-#: at 1e4, 4.5 at 2e4 (order 6); with order 7: 1.18 at 2000, 1.73 at 3000,
-#: 1.05 at 5000, 2.2 at 1e4. Put at 3000: below it the two are within noise,
-#: and the direct sum is exact.
-CROSSOVER = 3000
+#: ``benchmarks/bench_tree.py --crossover-only``: direct/tree time 0.50 at
+#: N = 1000, 0.89 at 1500, 1.40 at 2000, 2.13 at 3000, 4.2 at 1e4 (single-
+#: precision near sums; before them 1.18 at 2000 and 1.73 at 3000). Put at
+#: 2000, the first size measured where the tree wins clearly.
+CROSSOVER = 2000
 
 #: Most particles in a leaf of the source tree. A uniform cloud's leaves then
 #: hold between 1/8 of that and all of it, depending on N. Leaves of ~10 are

@@ -81,6 +81,19 @@ def test_domain_reflects_wraps_and_finds_outlets():
     assert dom.outlets == [(2, 1, "stack")]
     s = dom.crossing(np.array([[0.5, 0.5, 1.0]]), np.array([[0.5, 0.5, 3.0]]), 2, 1)
     assert s[0] == pytest.approx(0.5)
+    # the crossing fraction of a straight segment through a face (analytic
+    # geometry: (bound - z0) / (z1 - z0)); inf for segments ending inside,
+    # low face too
+    rng = np.random.default_rng(4)
+    z0 = rng.uniform(0, 2, 500)
+    z1 = z0 + rng.normal(size=500)
+    pts0 = np.column_stack([np.full(500, 0.5), np.full(500, 0.5), z0])
+    pts1 = np.column_stack([np.full(500, 0.5), np.full(500, 0.5), z1])
+    box = Domain(lo=(0, 0, 0.0), hi=(1, 1, 2.0), kinds=("open", "open", "open"))
+    for side, bound, beyond in ((1, 2.0, z1 > 2.0), (-1, 0.0, z1 < 0.0)):
+        s = box.crossing(pts0, pts1, 2, side)
+        assert np.array_equal(np.isinf(s), ~beyond) and beyond.any()
+        np.testing.assert_allclose(s[beyond], np.clip((bound - z0[beyond]) / (z1 - z0)[beyond], 0, 1), rtol=1e-14)
     with pytest.raises(ValueError, match="kinds"):
         Domain(kinds=("open", "sideways", "open"))
     with pytest.raises(ValueError, match="finite"):
@@ -147,3 +160,35 @@ def test_wire_in_tube_deposits_on_the_tube_at_the_analytic_time():
     r_start = r0[dep["id"]]
     expect = ((b - d / 2) ** 2 - r_start ** 2) * math.log(b / a) / (2 * abs(z * v))
     np.testing.assert_allclose(dep["time"], expect, rtol=2e-3)
+
+
+@pytest.mark.parametrize("bounded", [False, True])
+def test_plane_contact_is_the_segment_plane_intersection(bounded):
+    # reference: the line-plane intersection of analytic geometry, for the
+    # sphere of radius a: the centre meets the plane shifted by a along the
+    # normal at s = d0 / (d0 - d1), d = (x - p) . n - a; 0 if touching at the
+    # start; a touch outside the collector's box does not count
+    rng = np.random.default_rng(12)
+    m = 2000
+    n = np.array([0.3, -0.8, 0.52])
+    n /= np.linalg.norm(n)
+    p = np.array([0.1, 0.2, -0.1])
+    kw = dict(lo=(-0.3, -0.4, -0.5), hi=(0.5, 0.6, 0.2)) if bounded else {}
+    plate = PlaneCollector("p", p, n, **kw)
+    x0 = rng.uniform(-1, 1, (m, 3))
+    x1 = x0 + rng.normal(size=(m, 3)) * 0.3
+    a = rng.uniform(0, 0.05, m)
+    s, point = plate.contact(x0, x1, a)
+    d0 = (x0 - p) @ n - a
+    d1 = (x1 - p) @ n - a
+    want = np.where(d0 <= 0, 0.0, np.where(d1 <= 0, d0 / np.where(d1 <= 0, d0 - d1, 1.0), np.inf))
+    xs = x0 + np.where(np.isfinite(want), want, 0.0)[:, None] * (x1 - x0)
+    foot = xs - ((xs - p) @ n)[:, None] * n
+    if bounded:
+        outside = ~np.all((foot >= kw["lo"]) & (foot <= kw["hi"]), axis=1)
+        want[outside] = np.inf
+    assert np.array_equal(np.isinf(s), np.isinf(want))
+    assert 0 < np.isfinite(s).sum() < m and np.any(s == 0) and np.any((s > 0) & (s < 1))
+    np.testing.assert_allclose(s[np.isfinite(s)], want[np.isfinite(want)], rtol=1e-12, atol=1e-15)
+    np.testing.assert_allclose(point, foot, rtol=1e-12, atol=1e-14)
+    np.testing.assert_allclose((point - p) @ n, 0.0, atol=1e-14)

@@ -11,6 +11,7 @@ A particle touching a collector at the start of a step (s = 0) deposits at once.
 """
 import math
 
+import numba
 import numpy as np
 from .._validate import positive as _positive, unit as _unit, vector as _vector
 
@@ -134,24 +135,65 @@ class PlaneCollector(Collector):
         return np.broadcast_to(self.unit_normal, x.shape)
 
     def contact(self, x0, x1, radius):
-        n = self.unit_normal
-        d0 = (x0 - self.point) @ n - radius
-        d1 = (x1 - self.point) @ n - radius
-        s = np.full(d0.shape, np.inf)
-        start = d0 <= 0
-        s[start] = 0.0
-        cross = (~start) & (d1 <= 0)
-        s[cross] = d0[cross] / (d0[cross] - d1[cross])
-        hit = np.isfinite(s)
-        xs = x0 + np.where(hit, s, 0.0)[:, None] * (x1 - x0)
-        point = xs - ((xs - self.point) @ n)[:, None] * n
-        inside = np.all((point >= self.lo) & (point <= self.hi), axis=1)
-        s[hit & ~inside] = np.inf
+        # one compiled pass: the numpy expression of the same steps made ~15
+        # passes over (N, 3) arrays, 0.17 ms a call at N = 1000
+        m = x0.shape[0]
+        s = np.empty(m)
+        point = np.empty((m, 3))
+        _plane_contact(np.ascontiguousarray(x0, dtype=np.float64), np.ascontiguousarray(x1, dtype=np.float64),
+                       np.broadcast_to(np.asarray(radius, dtype=np.float64), (m,)), self.point, self.unit_normal,
+                       self.lo, self.hi, s, point)
         return s, point
 
     def describe(self):
         return {"kind": "plane", "name": self.name, "point": self.point.copy(), "normal": self.unit_normal.copy(),
                 "lo": self.lo.copy(), "hi": self.hi.copy(), "area": self.area}
+
+
+@numba.njit(cache=True)
+def _plane_contact(x0, x1, radius, p, n, lo, hi, s, point):
+    """Segment fraction s where each particle's sphere first touches the
+    plane through p with unit normal n (0 if it starts touching, inf if it
+    never does or touches outside the box [lo, hi]), and the touching point
+    projected on the plane (for a miss, the start point's projection)."""
+    for i in range(x0.shape[0]):
+        d0 = (x0[i, 0] - p[0]) * n[0] + (x0[i, 1] - p[1]) * n[1] + (x0[i, 2] - p[2]) * n[2] - radius[i]
+        d1 = (x1[i, 0] - p[0]) * n[0] + (x1[i, 1] - p[1]) * n[1] + (x1[i, 2] - p[2]) * n[2] - radius[i]
+        if d0 <= 0.0:
+            f = 0.0
+        elif d1 <= 0.0:
+            f = d0 / (d0 - d1)
+        else:
+            f = np.inf
+        hit = f < np.inf
+        t = f if hit else 0.0
+        xs0 = x0[i, 0] + t * (x1[i, 0] - x0[i, 0])
+        xs1 = x0[i, 1] + t * (x1[i, 1] - x0[i, 1])
+        xs2 = x0[i, 2] + t * (x1[i, 2] - x0[i, 2])
+        h = (xs0 - p[0]) * n[0] + (xs1 - p[1]) * n[1] + (xs2 - p[2]) * n[2]
+        q0 = xs0 - h * n[0]
+        q1 = xs1 - h * n[1]
+        q2 = xs2 - h * n[2]
+        point[i, 0] = q0
+        point[i, 1] = q1
+        point[i, 2] = q2
+        inside = lo[0] <= q0 <= hi[0] and lo[1] <= q1 <= hi[1] and lo[2] <= q2 <= hi[2]
+        s[i] = f if (hit and inside) else np.inf
+
+
+@numba.njit(cache=True)
+def _face_crossing(a0, a1, bound, upper, s):
+    """Fraction of each segment a0 -> a1 (one coordinate) where it passes
+    ``bound`` (an upper face when ``upper``), clipped to [0, 1]; inf where it
+    ends inside. (One compiled pass: the numpy form took 0.08 ms at N = 1000.)"""
+    for i in range(a0.size):
+        beyond = a1[i] > bound if upper else a1[i] < bound
+        if not beyond:
+            s[i] = np.inf
+            continue
+        den = a1[i] - a0[i]
+        t = (bound - a0[i]) / den if den != 0.0 else 0.0
+        s[i] = min(max(t, 0.0), 1.0)
 
 
 def _enter_sphere(w0, dw, reff, inside):
@@ -355,14 +397,9 @@ class Domain:
 
     def crossing(self, x0, x1, axis, side):
         """Segment fraction where the centre crosses an open face (inf: none)."""
-        bound = self.hi[axis] if side > 0 else self.lo[axis]
-        a0, a1 = x0[:, axis], x1[:, axis]
-        beyond = (a1 > bound) if side > 0 else (a1 < bound)
-        s = np.full(a0.shape, np.inf)
-        den = a1 - a0
-        with np.errstate(divide="ignore", invalid="ignore"):
-            t = np.where(den != 0, (bound - a0) / np.where(den != 0, den, 1.0), 0.0)
-        s[beyond] = np.clip(t[beyond], 0.0, 1.0)
+        bound = float(self.hi[axis] if side > 0 else self.lo[axis])
+        s = np.empty(x0.shape[0])
+        _face_crossing(x0[:, axis], x1[:, axis], bound, side > 0, s)
         return s
 
     def fold(self, x, v):

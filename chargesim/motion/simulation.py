@@ -26,6 +26,7 @@ space charge uses the charges before the step's charging update.
 import json
 import math
 
+import numba
 import numpy as np
 
 from .boundaries import Collector, Domain
@@ -174,6 +175,16 @@ class System:
     def surface_names(self):
         """Collector names, then outlet names (the event ``surface`` values)."""
         return [c.name for c in self.collectors] + [o[2] for o in self.domain.outlets]
+
+
+@numba.njit(cache=True)
+def _kinetic_energy(v, w, m):
+    """sum_i w_i m_i |v_i|^2 / 2 in one pass (numpy's einsum and products took
+    1.3 ms at N = 1e5, for every diagnostics row)."""
+    e = 0.0
+    for i in range(w.size):
+        e += w[i] * m[i] * (v[i, 0] * v[i, 0] + v[i, 1] * v[i, 1] + v[i, 2] * v[i, 2])
+    return 0.5 * e
 
 
 class _NullRecorder:
@@ -521,8 +532,8 @@ class Simulation:
         """
         sys_ = self.system
         s = sys_.state
-        v2 = np.einsum("ij,ij->i", s.velocity, s.velocity)
-        kin = float(0.5 * np.sum(s.weight * s.mass * v2))
+        kin = _kinetic_energy(np.ascontiguousarray(s.velocity), np.ascontiguousarray(s.weight),
+                              np.ascontiguousarray(s.mass))
         qs = s.weight * s.charge
         coul = math.nan
         if sys_.coulomb is not None and s.n <= self.energy_max_n:

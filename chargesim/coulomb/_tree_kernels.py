@@ -19,6 +19,8 @@ reduced, scaled raw moments of :func:`chargesim.coulomb._multipoles.m2l_table`.
 Every target's sum runs in one thread in a fixed order (the traversal order),
 so results are bitwise reproducible and do not depend on the thread count.
 """
+import math
+
 import numba
 import numpy as np
 
@@ -376,6 +378,29 @@ def _near_points(xi, yi, zi, sx, sy, sz, sq, a, b):
     return ax, ay, az, p, c
 
 
+@numba.njit(inline="always")
+def _gather_near(nodes, u0, u1, sstart, send, sx, sy, sz, sq, sr, use_radii, nb):
+    """The particles of source nodes ``nodes[u0:u1]`` in one contiguous run
+    (rows x, y, z, q, radius of ``nb``, grown as needed): one long vectorised
+    loop per target instead of many short ones. Returns (nb, count)."""
+    tot = 0
+    for u in range(u0, u1):
+        k = nodes[u]
+        s0 = sstart[k]
+        s1 = send[k]
+        if tot + (s1 - s0) > nb.shape[1]:
+            nb = _grow_rows(nb, max(2 * nb.shape[1], tot + (s1 - s0)), tot)
+        for j in range(s0, s1):
+            nb[0, tot] = sx[j]
+            nb[1, tot] = sy[j]
+            nb[2, tot] = sz[j]
+            nb[3, tot] = sq[j]
+            if use_radii:
+                nb[4, tot] = sr[j]
+            tot += 1
+    return nb, tot
+
+
 @numba.njit(fastmath=_FM, error_model="numpy", cache=True)
 def _near_points32(xi, yi, zi, sx, sy, sz, sq, n, close2):
     """:func:`_near_points` with each pair in single precision (coordinates
@@ -722,7 +747,7 @@ def _group_nodes(tfirst, tnchild, g0, g1, tn, counts):
 def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use_radii,
                  tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0s, g1s,
                  theta, direct_max, didx, dcoef, rows, unfold, deriv, local_scale, grad_rows,
-                 shift_idx, shift_coef, parent, axis, n_blocks, single_rel, ex, ey, ez, phi, nzero):
+                 shift_idx, shift_coef, parent, axis, n_blocks, single_rel, qscale, ex, ey, ez, phi, nzero):
     """Field and potential sums at the (Morton-sorted) targets, group by group.
 
     For each target group the dual walk (:func:`_traverse`) gives each of its
@@ -821,28 +846,6 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                 ta = tn[a]
                 if tnchild[ta] != 0:
                     continue
-                # near particles gathered into one contiguous run: one long
-                # vectorised loop per target instead of many short ones
-                tot = 0
-                for u in range(o1[a], o1[a + 1]):
-                    k = srt1[u]
-                    s0 = sstart[k]
-                    s1 = send[k]
-                    if tot + (s1 - s0) > nb.shape[1]:
-                        nb = _grow_rows(nb, max(2 * nb.shape[1], tot + (s1 - s0)), tot)
-                    for j in range(s0, s1):
-                        nb[0, tot] = sx[j]
-                        nb[1, tot] = sy[j]
-                        nb[2, tot] = sz[j]
-                        nb[3, tot] = sq[j]
-                        if use_radii:
-                            nb[4, tot] = sr[j]
-                        tot += 1
-                bx = nb[0]
-                by = nb[1]
-                bz = nb[2]
-                bq = nb[3]
-                br = nb[4]
                 cax = tnd[ta, 0]
                 cay = tnd[ta, 1]
                 caz = tnd[ta, 2]
@@ -850,32 +853,43 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                 fscale = 1.0
                 pscale = 1.0
                 ifar = 1.0
+                nb_ready = False
+                tot = 0
                 if single:
-                    # coordinates relative to the leaf's centre over the
-                    # farthest one, charges over the largest: all of order 1,
-                    # so single precision neither overflows nor underflows
-                    if nf.shape[1] < tot:
-                        nf = np.empty((5, nb.shape[1]), np.float32)
-                    far = 0.0
-                    qmax = 0.0
-                    for j in range(tot):
-                        far = max(far, abs(bx[j] - cax), abs(by[j] - cay), abs(bz[j] - caz))
-                        qmax = max(qmax, abs(bq[j]))
-                    for i in range(tstart[ta], tend[ta]):
-                        far = max(far, abs(tx[i] - cax), abs(ty[i] - cay), abs(tz[i] - caz))
-                    far = far if far > 0.0 else 1.0
-                    qmax = qmax if qmax > 0.0 else 1.0
+                    # straight from the sources into single precision:
+                    # coordinates relative to the leaf's centre over a bound
+                    # of the farthest one (node geometry), charges over the
+                    # largest of all: all of order 1, so single precision
+                    # neither overflows nor underflows. The double copy is
+                    # made only for a target summed again in double.
+                    far = tnd[ta, 3]
+                    for u in range(o1[a], o1[a + 1]):
+                        k = srt1[u]
+                        tot += send[k] - sstart[k]
+                        far = max(far, abs(snd[k, 0] - cax) + snd[k, 3], abs(snd[k, 1] - cay) + snd[k, 3],
+                                  abs(snd[k, 2] - caz) + snd[k, 3])
+                    # a power of two: the scaling itself rounds nothing
+                    far = math.ldexp(1.0, math.frexp(far)[1]) if far > 0.0 else 1.0
                     ifar = 1.0 / far
-                    iq = 1.0 / qmax
-                    for j in range(tot):
-                        nf[0, j] = (bx[j] - cax) * ifar
-                        nf[1, j] = (by[j] - cay) * ifar
-                        nf[2, j] = (bz[j] - caz) * ifar
-                        nf[3, j] = bq[j] * iq
-                        if use_radii:
-                            nf[4, j] = br[j] * ifar
-                    pscale = qmax * ifar
+                    iq = 1.0 / qscale
+                    if nf.shape[1] < tot:
+                        nf = np.empty((5, max(2 * nf.shape[1], tot)), np.float32)
+                    w = 0
+                    for u in range(o1[a], o1[a + 1]):
+                        k = srt1[u]
+                        for j in range(sstart[k], send[k]):
+                            nf[0, w] = (sx[j] - cax) * ifar
+                            nf[1, w] = (sy[j] - cay) * ifar
+                            nf[2, w] = (sz[j] - caz) * ifar
+                            nf[3, w] = sq[j] * iq
+                            if use_radii:
+                                nf[4, w] = sr[j] * ifar
+                            w += 1
+                    pscale = qscale * ifar
                     fscale = pscale * ifar
+                else:
+                    nb, tot = _gather_near(srt1, o1[a], o1[a + 1], sstart, send, sx, sy, sz, sq, sr, use_radii, nb)
+                    nb_ready = True
                 fbx = nf[0]
                 fby = nf[1]
                 fbz = nf[2]
@@ -931,6 +945,15 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                             c = 0 if use_radii else expect
                         else:
                             dbl = True
+                    if dbl and not nb_ready:
+                        nb, tot = _gather_near(srt1, o1[a], o1[a + 1], sstart, send, sx, sy, sz, sq, sr, use_radii,
+                                               nb)
+                        nb_ready = True
+                    bx = nb[0]
+                    by = nb[1]
+                    bz = nb[2]
+                    bq = nb[3]
+                    br = nb[4]
                     if dbl and use_radii:
                         ri = tr[i]
                         fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, tot)

@@ -51,6 +51,8 @@ Memory: about 100-200 bytes per particle (sorted copies, permutation, node
 geometry and moments, results); no N x N array, per-thread interaction
 buffers only.
 """
+import math
+
 import numba
 import numpy as np
 
@@ -207,6 +209,10 @@ class Tree:
         self._y = np.ascontiguousarray(y[perm])
         self._z = np.ascontiguousarray(z[perm])
         self._q = np.ascontiguousarray(q[perm])
+        # charges over it are of order 1 in single precision; a power of two,
+        # so that the scaling itself rounds nothing
+        qmax = float(np.abs(q).max())
+        self._qscale = math.ldexp(1.0, math.frexp(qmax)[1]) if qmax > 0.0 else 1.0
         self._r = np.ascontiguousarray(rad[perm]) if rad is not None else np.zeros(0)
         self._start, self._end, self._first, self._nchild = _k.build_topology(codes, self.leaf_size)
         del codes
@@ -293,7 +299,8 @@ class Tree:
                             tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0, g1,
                             theta, int(DIRECT_MAX), _DIDX, _DCOEF, _M2L_ROWS, _UNFOLD, _DERIV,
                             _LOCAL_SCALE, _GRAD_ROWS,
-                            _SHIFT_IDX, _SHIFT_COEF, _PARENT, _AXIS, nb, single_rel, ex, ey, ez, phi, nzero)
+                            _SHIFT_IDX, _SHIFT_COEF, _PARENT, _AXIS, nb, single_rel, self._qscale, ex, ey, ez, phi,
+                            nzero)
         finally:
             numba.set_parallel_chunksize(old)
         allowed = 1 if (self_targets and not use_radii) else 0

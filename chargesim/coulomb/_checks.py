@@ -7,16 +7,13 @@ import math
 
 import numpy as np
 
+from .._validate import all_finite
 from .._validate import positive  # noqa: F401  (re-exported for the method modules)
 
 
 def _first_bad_row(arr):
-    # fast path: a sum is finite only if every term is (NaN and inf carry
-    # through; an overflow of huge finite terms falls to the search, which
-    # then finds nothing). 0.1 ms against 2.5 ms for 1e5 points.
-    with np.errstate(over="ignore", invalid="ignore"):
-        if np.isfinite(np.sum(arr)):
-            return None
+    if all_finite(arr):  # fast path; else search (an overflowed sum finds nothing)
+        return None
     bad = ~np.isfinite(arr)
     if arr.ndim > 1:
         bad = bad.any(axis=tuple(range(1, arr.ndim)))

@@ -22,6 +22,7 @@ values these functions are checked against.
 """
 import numpy as np
 
+from .._validate import all_finite
 from .constants import BOLTZMANN, ROOM_TEMPERATURE, STANDARD_GRAVITY, STANDARD_PRESSURE
 
 #: Viscosity of air at 20 degC, Pa s (Hinds, Aerosol Technology).
@@ -49,13 +50,10 @@ def _array(value, name, *, positive=True, nonnegative=False, allow_inf=False):
     except (TypeError, ValueError) as exc:
         raise ValueError(f"{name} must be numeric: {exc}") from None
     flat = arr.reshape(-1)
-    if flat.size > 1 and not allow_inf:
-        # fast path, two reductions (the run loop checks its particle arrays
-        # every step): a finite sum means every term is finite (NaN and inf
-        # carry through; an overflow of finite terms falls to the search)
-        with np.errstate(over="ignore", invalid="ignore"):
-            finite = bool(np.isfinite(np.sum(flat)))
-        if finite and (flat.min() > 0 if positive else (flat.min() >= 0 if nonnegative else True)):
+    if flat.size > 1 and not allow_inf and all_finite(flat):
+        # fast path, one sum and one minimum (the run loop checks its particle
+        # arrays every step); anything else goes to the element search
+        if flat.min() > 0 if positive else (flat.min() >= 0 if nonnegative else True):
             return arr
     bad = np.isnan(flat) if allow_inf else ~np.isfinite(flat)
     if positive:

@@ -486,7 +486,9 @@ def _near_spheres32(xi, yi, zi, ri, sx, sy, sz, sq, sr, n, close2):
     (scaled coordinates, radii and charges; runs summed in double; the count
     of pairs closer than sqrt(``close2``)). A pair at zero distance adds
     nothing here: it is the target itself (whose own potential is then left
-    out) or, counted, sends the target back to double precision."""
+    out) or, counted, sends the target back to double precision. (Points
+    keep their own kernel: through this one, with zero radii, the 1e6
+    uniform evaluation took 3.9 s against 2.8 s.)"""
     zero = np.float32(0.0)
     one = np.float32(1.0)
     half = np.float32(0.5)

@@ -345,6 +345,24 @@ def test_memory_per_particle():
     assert t.nbytes / 50_000 < 500
 
 
+def test_morton_sort_is_the_stable_argsort():
+    # reference: numpy's stable argsort of the same codes (the packed-key
+    # sort must give exactly that order: ties in the high bits fixed by the
+    # full codes, exact ties in index order)
+    from chargesim.coulomb import _tree_kernels as kern
+
+    rng = _rng(30)
+    for n in (1, 2, 3, 1000, 70_000):
+        full = rng.integers(0, 2**63 - 1, n)
+        for codes in (full,                                             # all distinct
+                      (full >> 50 << 50) | rng.integers(0, 1000, n),    # high bits tie, low bits differ
+                      rng.integers(0, 5, n)):                           # exact ties
+            perm, out = kern.sort_codes(codes)
+            ref = np.argsort(codes, kind="stable")
+            np.testing.assert_array_equal(perm, ref)
+            np.testing.assert_array_equal(out, codes[ref])
+
+
 def test_target_groups_partition_in_morton_order():
     # structure: groups are runs of sibling nodes whose points are consecutive
     # runs covering every sorted target once, each within GROUP_SIZE unless it
@@ -401,7 +419,10 @@ def _local_expansion(s, q, r_vec):
     from chargesim.coulomb import _tree_kernels as _k
 
     raw = (q @ _monos(s, tree._mp.ORDER))[None, :]
-    mm = raw @ tree._FOLD_T
+    # the sparse fold of the tree, checked against the dense product it replaces
+    mm = np.empty((1, tree._FOLD.shape[0]))
+    _k.fold_moments(raw, tree._FOLD_ROWS, tree._FOLD_COLS, tree._FOLD_VALS, mm)
+    np.testing.assert_allclose(mm, raw @ (tree._FOLD * tree._MOMENT_SCALE).T, rtol=1e-13, atol=0.0)
     nd = np.zeros((1, _k.NODE_COLS))
     ncl = tree._LOCAL_SCALE.size
     loc = np.zeros(ncl)

@@ -75,6 +75,14 @@ def monomial_table(p=ORDER):
     return parent, axis
 
 
+def exponent_table(p=ORDER):
+    """idx[a, b, c] = stored component of s^(a, b, c) for a + b + c <= p, else -1."""
+    idx = np.full((p + 1, p + 1, p + 1), -1, np.int64)
+    for c, m in enumerate(_components(p)):
+        idx[m] = c
+    return idx
+
+
 def shift_table(p=ORDER):
     """Raw-moment shift A'_m = sum_{k <= m} C(m, k) A_k d^(m-k), orders <= p: rows (m, k, m - k, C(m, k))."""
     rows = []

@@ -66,11 +66,20 @@ from . import _multipoles as _mp
 from . import _tree_kernels as _k
 
 _PARENT, _AXIS = _mp.monomial_table()
+_EXPO = _mp.exponent_table()
 _SHIFT_IDX, _SHIFT_COEF = _mp.shift_table()
+# M2M sums the rows of each shifted moment m (the table is grouped by m);
+# L2L the rows of each shifted local coefficient k: the table grouped by k
+_SHIFT_PTR = np.searchsorted(_SHIFT_IDX[:, 0], np.arange(_PARENT.size + 1)).astype(np.int64)
+_DOWN = np.argsort(_SHIFT_IDX[:, 1], kind="stable")
+_DOWN_IDX, _DOWN_COEF = np.ascontiguousarray(_SHIFT_IDX[_DOWN]), np.ascontiguousarray(_SHIFT_COEF[_DOWN])
+_DOWN_PTR = np.searchsorted(_DOWN_IDX[:, 1], np.arange(_PARENT.size + 1)).astype(np.int64)
 _DIDX, _DCOEF = _mp.derivative_table()
 _M2L_TERMS, _FOLD, _UNFOLD, _DERIV, _MOMENT_SCALE, _LOCAL_SCALE = _mp.m2l_table()
 _M2L_ROWS = _mp.block_rows(_M2L_TERMS, _LOCAL_SCALE.size)
-_FOLD_T = np.ascontiguousarray((_FOLD * _MOMENT_SCALE).T)
+# the fold (raw moments -> reduced, scaled moments) is sparse: its nonzeros
+_FOLD_ROWS, _FOLD_COLS = (np.ascontiguousarray(a, dtype=np.int64) for a in np.nonzero((_FOLD * _MOMENT_SCALE).T))
+_FOLD_VALS = np.ascontiguousarray((_FOLD * _MOMENT_SCALE).T[_FOLD_ROWS, _FOLD_COLS])
 _GRAD_ROWS = _mp.gradient_table()
 
 #: Options of this method and their defaults: ``accuracy`` is the asked rms
@@ -149,20 +158,21 @@ def theta_for(accuracy):
     return float(min(max(th, THETA_RANGE[0]), THETA_RANGE[1]))
 
 
-def _soa(points):
-    t = np.ascontiguousarray(points.T)
-    return t[0], t[1], t[2]
+def _morton_sorted(points):
+    """Points (N, 3) sorted by Morton code over their bounding cube.
 
-
-def _morton_order(x, y, z):
-    """Permutation sorting points by Morton code over their bounding cube."""
-    lo = np.array([x.min(), y.min(), z.min()])
-    edge = max(x.max() - lo[0], y.max() - lo[1], z.max() - lo[2])
+    Returns the permutation (sorted row i is ``points[perm[i]]``), the sorted
+    codes and the sorted coordinates as the rows of a (3, N) array.
+    """
+    x, y, z = points[:, 0], points[:, 1], points[:, 2]
+    lo, edge = _k.bounds(points)
     scale = (_k._MORTON_MAX / edge) if edge > 0 else 0.0
-    codes = np.empty(x.size, np.int64)
+    codes = np.empty(points.shape[0], np.int64)
     _k.morton_codes(x, y, z, lo, scale, codes)
-    perm = np.argsort(codes, kind="stable")
-    return perm, codes[perm]
+    perm, codes = _k.sort_codes(codes)
+    xyz = np.empty((3, points.shape[0]))
+    _k.gather(perm, x, y, z, xyz)
+    return perm, codes, xyz
 
 
 def _n_blocks(n_groups):
@@ -206,13 +216,10 @@ class Tree:
         self.n = n
         self._pos = pos
         self._radii = rad
-        x, y, z = _soa(pos)
-        perm, codes = _morton_order(x, y, z)
+        perm, codes, xyz = _morton_sorted(pos)
         self._perm = perm
-        self._x = np.ascontiguousarray(x[perm])
-        self._y = np.ascontiguousarray(y[perm])
-        self._z = np.ascontiguousarray(z[perm])
-        self._q = np.ascontiguousarray(q[perm])
+        self._x, self._y, self._z = xyz
+        self._q = q[perm]
         # charges over it are of order 1 in single precision; a power of two,
         # so that the scaling itself rounds nothing
         qmax = float(np.abs(q).max())
@@ -223,10 +230,12 @@ class Tree:
         self._nd = np.empty((self._start.size, _k.NODE_COLS))
         _k.node_data(self._start, self._end, self._x, self._y, self._z, self._r, rad is not None, self._nd)
         raw = np.empty((self._start.size, _PARENT.size))
-        _k.leaf_moments(self._start, self._end, self._nchild, self._nd, self._x, self._y, self._z, self._q,
-                        _PARENT, _AXIS, raw)
-        _k.upward_moments(self._first, self._nchild, self._nd, raw, _PARENT, _AXIS, _SHIFT_IDX, _SHIFT_COEF)
-        self._mm = raw @ _FOLD_T
+        _k.leaf_moments(self._start, self._end, self._nchild, self._nd, self._x, self._y, self._z, self._q, _EXPO,
+                        raw)
+        _k.upward_moments(self._first, self._nchild, self._nd, raw, _PARENT, _AXIS, _SHIFT_IDX, _SHIFT_COEF,
+                          _SHIFT_PTR)
+        self._mm = np.empty((raw.shape[0], _FOLD.shape[0]))
+        _k.fold_moments(raw, _FOLD_ROWS, _FOLD_COLS, _FOLD_VALS, self._mm)
         del raw
         self._g0, self._g1 = _k.groups(self._start, self._end, self._first, self._nchild, GROUP_SIZE)
 
@@ -274,12 +283,7 @@ class Tree:
             m = tgt.shape[0]
             if m == 0:
                 return (np.zeros((0, 3)) if need_field else None), (np.zeros(0) if need_potential else None)
-            x, y, z = _soa(tgt)
-            tperm, tcodes = _morton_order(x, y, z)
-            tx = np.ascontiguousarray(x[tperm])
-            ty = np.ascontiguousarray(y[tperm])
-            tz = np.ascontiguousarray(z[tperm])
-            del x, y, z
+            tperm, tcodes, (tx, ty, tz) = _morton_sorted(tgt)
             tr = np.zeros(m) if use_radii else np.zeros(0)
             tstart, tend, tfirst, tnchild = _k.build_topology(tcodes, self.leaf_size)
             del tcodes
@@ -303,8 +307,8 @@ class Tree:
                             tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0, g1,
                             theta, int(DIRECT_MAX), _DIDX, _DCOEF, _M2L_ROWS, _UNFOLD, _DERIV,
                             _LOCAL_SCALE, _GRAD_ROWS,
-                            _SHIFT_IDX, _SHIFT_COEF, _PARENT, _AXIS, nb, single_rel, self._qscale, ex, ey, ez, phi,
-                            nzero)
+                            _DOWN_IDX, _DOWN_COEF, _DOWN_PTR, _PARENT, _AXIS, nb, single_rel, self._qscale,
+                            ex, ey, ez, phi, nzero)
         finally:
             numba.set_parallel_chunksize(old)
         allowed = 1 if (self_targets and not use_radii) else 0

@@ -229,13 +229,27 @@ def test_bad_input_names_the_argument(kwargs, fragment):
 
 
 def test_huge_finite_positions_pass_the_finiteness_check():
-    # the check's fast path sums the coordinates; a sum that overflows to inf
-    # must fall back to the element test and accept the finite points
+    # the check's fast path sums over the coordinates; huge finite values
+    # must never read as non-finite (IEEE 754: inf and NaN, nothing else)
     pos = np.array([[1e308, 1e308, 0.0], [1e308, -1e308, 1e308], [-1e308, 1e308, 1e308]])
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # the overflow of the fast path stays silent
         f = chargesim.field(pos, [1.0, 1.0, 1.0], method="direct")
     assert f.shape == (3, 3)
+
+
+def test_finiteness_check_finds_every_kind_of_non_finite_value():
+    # IEEE 754: +inf, -inf and NaN anywhere (any position modulo the check's
+    # four side-by-side sums, and in the tail) make an array non-finite
+    from chargesim._validate import all_finite
+
+    assert all_finite(np.zeros(0)) and all_finite(np.full(7, 1e308)) and all_finite(np.arange(9))
+    for bad in (np.inf, -np.inf, np.nan):
+        for n in (1, 4, 7, 10):
+            for i in range(n):
+                a = np.ones(n)
+                a[i] = bad
+                assert not all_finite(a) and not all_finite(a.reshape(n, 1))
 
 
 def test_coincident_points_are_refused_with_indices():

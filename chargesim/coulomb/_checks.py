@@ -12,7 +12,7 @@ from .._validate import positive  # noqa: F401  (re-exported for the method modu
 
 
 def _first_bad_row(arr):
-    if all_finite(arr):  # fast path; else search (an overflowed sum finds nothing)
+    if all_finite(arr):  # fast path; else search the elements
         return None
     bad = ~np.isfinite(arr)
     if arr.ndim > 1:

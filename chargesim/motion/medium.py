@@ -139,6 +139,9 @@ class Medium:
         # pressure at which air would have it (lambda ~ 1/p), so the one slip
         # formula of the physics layer serves both cases.
         self._slip_pressure = self.pressure * air_mfp / self.mean_free_path
+        # 2 lambda of the slip relation, for the run loop's drag rate (as
+        # aerosol.knudsen_number forms it, so the results are the same bits)
+        self._two_lambda = 2.0 * aerosol.mean_free_path(self.temperature, self._slip_pressure)
         if flow is not None and not callable(flow):
             raise ValueError("flow must be callable as flow(points) -> (M, 3) m/s, or None")
         self.flow = flow
@@ -161,6 +164,14 @@ class Medium:
     def relaxation_time(self, diameter, density):
         """Relaxation time tau = rho d^2 Cc/(18 mu), s."""
         return aerosol.relaxation_time(diameter, density, self.temperature, self._slip_pressure, self.viscosity)
+
+    def drag_rate(self, diameter, density):
+        """1/tau, 1/s, for the arrays of a particle state (checked when the
+        particles were added, so not again: the run loop calls this every
+        step, and the argument checks of :meth:`relaxation_time` cost more
+        than its arithmetic for a thousand particles)."""
+        cc = aerosol.slip_from_knudsen(self._two_lambda / diameter)
+        return 1.0 / aerosol.relaxation_time_from(diameter, density, cc, self.viscosity)
 
     def diffusivity(self, diameter):
         """Brownian diffusivity D = k T B, m^2/s."""

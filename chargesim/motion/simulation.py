@@ -281,7 +281,7 @@ class Simulation:
         self._accel = np.ascontiguousarray((s.charge / m)[:, None] * self._field + sys_.gravity)
         self._u = np.ascontiguousarray(sys_.medium.gas_velocity(s.position))
         if sys_.drag:
-            self._beta = 1.0 / np.asarray(sys_.medium.relaxation_time(s.diameter, s.density), dtype=np.float64)
+            self._beta = sys_.medium.drag_rate(s.diameter, s.density)
         else:
             self._beta = np.zeros(n)
 

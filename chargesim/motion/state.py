@@ -8,6 +8,7 @@ stay bitwise reproducible.
 """
 import math
 
+import numba
 import numpy as np
 
 # name -> (dtype, trailing shape)
@@ -58,6 +59,22 @@ def _points(value, name, n=None):
     if bad.size:
         raise ValueError(f"{name} holds a non-finite value at index {int(bad[0])}")
     return arr
+
+
+@numba.njit(cache=True)
+def _keep_rows(arr, alive):
+    """Move the rows i with alive[i] to the front of ``arr`` (n, k), in order.
+
+    One pass in place: numpy's masked copy of each column took 9 ms a step
+    at N = 1e5 (a temporary per column)."""
+    w = 0
+    for i in range(alive.size):
+        if alive[i]:
+            if w != i:
+                for c in range(arr.shape[1]):
+                    arr[w, c] = arr[i, c]
+            w += 1
+    return w
 
 
 class ParticleState:
@@ -208,7 +225,7 @@ class ParticleState:
         if keep == self._n:
             return list(extra)
         for k, arr in self._data.items():
-            arr[:keep] = arr[: self._n][alive]
+            _keep_rows(arr.reshape(arr.shape[0], -1), alive)
         self._n = keep
         return [e[alive] for e in extra]
 

@@ -181,8 +181,18 @@ def slip_correction(diameter, temperature=_T0, pressure=_P0):
     float or ndarray
         Cc, 1 (>= 1; about 2.9 at 0.1 um, 1.15 at 1 um in air at 20 degC).
     """
-    kn = np.asarray(knudsen_number(diameter, temperature, pressure))
-    return _out(1.0 + kn * (SLIP_A + SLIP_B * np.exp(-SLIP_C / kn)))
+    return _out(slip_from_knudsen(np.asarray(knudsen_number(diameter, temperature, pressure))))
+
+
+def slip_from_knudsen(kn):
+    """Cc = 1 + Kn (1.142 + 0.558 exp(-0.999/Kn)) for a checked Knudsen number (array or float)."""
+    return 1.0 + kn * (SLIP_A + SLIP_B * np.exp(-SLIP_C / kn))
+
+
+def relaxation_time_from(diameter, density, slip, viscosity):
+    """tau = rho d^2 Cc/(18 mu), s, from checked arrays or floats (no checks:
+    the run loop's particle arrays were checked when the particles were added)."""
+    return density * diameter * diameter * slip / (18.0 * viscosity)
 
 
 def _viscosity(viscosity, temperature):
@@ -303,7 +313,7 @@ def relaxation_time(diameter, density, temperature=_T0, pressure=_P0, viscosity=
     rho = _array(density, "density")
     mu = _viscosity(viscosity, temperature)
     cc = np.asarray(slip_correction(d, temperature, pressure))
-    return _out(rho * d * d * cc / (18.0 * mu))
+    return _out(relaxation_time_from(d, rho, cc, mu))
 
 
 def settling_velocity(diameter, density, temperature=_T0, pressure=_P0, viscosity=None, gravity=STANDARD_GRAVITY):

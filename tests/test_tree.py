@@ -386,6 +386,26 @@ def test_target_groups_partition_in_morton_order():
             assert gs.size < 2 * 20_000 / tree.GROUP_SIZE
 
 
+def test_field_alone_equals_field_with_potential():
+    # the field-only near sums of spheres leave the potential out and must
+    # give the very same field (same pairs, same order), and the potential
+    # asked alone must equal the one asked with the field; checked at a
+    # single-precision accuracy (1e-3) and a double one (1e-5)
+    rng = _rng(31)
+    n = 6000
+    pos = _clustered(rng, n)
+    q = _mixed(rng, n)
+    radii = rng.uniform(0.0, 2e-3, n)
+    t = tree.Tree(pos, q, radii)
+    for acc in (1e-3, 1e-5):
+        f_both, p_both = t.evaluate(accuracy=acc)
+        f_only, none = t.evaluate(need_potential=False, accuracy=acc)
+        none2, p_only = t.evaluate(need_field=False, accuracy=acc)
+        assert none is None and none2 is None
+        np.testing.assert_array_equal(f_only, f_both)
+        np.testing.assert_array_equal(p_only, p_both)
+
+
 def test_radii_with_point_members_and_huge_self_potential():
     # reference: direct sum with the sphere kernel; some particles of a
     # radii set have R = 0 (point members, no false coincidence), others

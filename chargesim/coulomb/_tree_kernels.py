@@ -596,7 +596,7 @@ def _near_spheres(xi, yi, zi, ri, sx, sy, sz, sq, sr, a, b):
 
 
 @numba.njit(fastmath=_FM, error_model="numpy", cache=True)
-def _near_spheres32(xi, yi, zi, ri, sx, sy, sz, sq, sr, n, close2):
+def _near_spheres32(xi, yi, zi, ri, sx, sy, sz, sq, sr, n, close2, need_pot):
     """:func:`_near_spheres` in single precision, as :func:`_near_points32`
     (scaled coordinates, radii and charges; runs summed in double; the count
     of pairs closer than sqrt(``close2``)). A pair at zero distance adds
@@ -630,15 +630,16 @@ def _near_spheres32(xi, yi, zi, ri, sx, sy, sz, sq, sr, n, close2):
             d = d if live else one
             invd = one / np.sqrt(d)
             inv3 = invd * invd * invd
-            inside = r2 < a2
-            pot = half * (three * a2 - r2) * inv3 if inside else invd
             s3 = sq[j] * inv3
             s3 = s3 if live else zero
-            pot = sq[j] * pot if live else zero
             bx += s3 * dx
             by += s3 * dy
             bz += s3 * dz
-            bp += pot
+            if need_pot:  # loop-invariant: compiled as two loops, the field-only one shorter
+                inside = r2 < a2
+                pot = half * (three * a2 - r2) * inv3 if inside else invd
+                pot = sq[j] * pot if live else zero
+                bp += pot
             c += 1 if r2 < close2 else 0
         ax += np.float64(bx)
         ay += np.float64(by)
@@ -899,7 +900,8 @@ def _group_nodes(tfirst, tnchild, g0, g1, tn, counts):
 def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use_radii,
                  tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0s, g1s,
                  theta, direct_max, didx, dcoef, rows, unfold, deriv, local_scale, grad_rows,
-                 down_idx, down_coef, down_ptr, parent, axis, n_blocks, single_rel, qscale, ex, ey, ez, phi, nzero):
+                 down_idx, down_coef, down_ptr, parent, axis, n_blocks, single_rel, qscale, need_pot, ex, ey, ez, phi,
+                 nzero):
     """Field and potential sums at the (Morton-sorted) targets, group by group.
 
     For each target group the dual walk (:func:`_traverse`) gives each of its
@@ -918,7 +920,9 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
     2^-24 (2 |x| + r), |x| the target's distance from the centre (the
     source's is at most |x| + r); a target with a pair closer than
     ``single_rel`` x |x|, or an unexpected zero distance, is summed again
-    in double precision. 0: double precision throughout.
+    in double precision. 0: double precision throughout. ``need_pot``
+    False: the single-precision near sums of spheres leave out the
+    potential (``phi`` is then incomplete, and not for use).
     """
     ng = g0s.size
     ncl = local_scale.size
@@ -1090,7 +1094,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                         if use_radii:
                             gx, gy, gz, gp, c = _near_spheres32(np.float32(ux), np.float32(uy), np.float32(uz),
                                                                 np.float32(tr[i] * ifar), fbx, fby, fbz, fbq, fbr,
-                                                                tot, close2)
+                                                                tot, close2, need_pot)
                         else:
                             gx, gy, gz, gp, c = _near_points32(np.float32(ux), np.float32(uy), np.float32(uz),
                                                                fbx, fby, fbz, fbq, tot, close2)

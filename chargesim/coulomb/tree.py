@@ -308,7 +308,7 @@ class Tree:
                             theta, int(DIRECT_MAX), _DIDX, _DCOEF, _M2L_ROWS, _UNFOLD, _DERIV,
                             _LOCAL_SCALE, _GRAD_ROWS,
                             _DOWN_IDX, _DOWN_COEF, _DOWN_PTR, _PARENT, _AXIS, nb, single_rel, self._qscale,
-                            ex, ey, ez, phi, nzero)
+                            bool(need_potential), ex, ey, ez, phi, nzero)
         finally:
             numba.set_parallel_chunksize(old)
         allowed = 1 if (self_targets and not use_radii) else 0

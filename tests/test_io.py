@@ -6,6 +6,7 @@ xml.etree (the XDMF data model: a DataItem "file:/path" points at an HDF5
 dataset of the given Dimensions).
 """
 import json
+import math
 import os
 import xml.etree.ElementTree as ET
 
@@ -220,6 +221,13 @@ def test_checkpoint_round_trip_bitwise(tmp_path):
                   "empty": np.zeros((0, 3)), "zero_d": np.array(2.5)},
         "inlets": [{"carry": 0.37, "name": "inlet"}, (1, 2.0)],
         "labels": np.array(["plate", "wire"]),
+        # dicts of plain values are kept as one JSON attribute: exact floats
+        # (repr round trip: NaN, inf, -0.0, subnormals), big ints, key order
+        "totals": {"plate": {"count": 3, "mass": 0.1 + 0.2, "flag": False},
+                   "wall": {"count": 0, "mass": -0.0, "inf": float("inf"), "tiny": 5e-324, "nan": float("nan")},
+                   "list": [1, 2.5, "x", None, 2 ** 100]},
+        # ... but a dict holding a tuple is not (JSON would make it a list)
+        "pair": {"a": (1, 2.0)},
     }
     p = str(tmp_path / "c.ckpt")
     save_checkpoint(p, snap, {"counts": {"frames": 3}})
@@ -243,6 +251,7 @@ def test_checkpoint_round_trip_bitwise(tmp_path):
         else:
             assert a == b and (not isinstance(a, np.generic) or a.dtype == b.dtype)
     same(snap, back)
+    assert math.copysign(1.0, back["totals"]["wall"]["mass"]) == -1.0
     # the restored RNG continues the same stream
     r2 = np.random.default_rng()
     r2.bit_generator.state = back["rng"]

@@ -207,6 +207,27 @@ def test_xdmf_sidecar_points_at_datasets(tmp_path):
     _check_xdmf(out)
 
 
+def test_event_surface_names_round_trip_in_utf8(tmp_path):
+    # surface names are stored as fixed-length UTF-8 (HDF5 string type):
+    # a batch on one surface (the encoder's short path), a mixed batch, and
+    # names over the byte limit refused either way
+    p = str(tmp_path / "names.h5")
+    w = ResultsWriter(p, scenario_text="", seed=None)
+    w.start({"surfaces": ["plaque nord é", "wall"]})
+    w.deposits(_events(3, 0, "plaque nord é"))
+    mixed = _events(3, 1)
+    mixed["surface"] = np.array(["wall", "plaque nord é", "wall"])
+    w.deposits(mixed)
+    for batch in (np.array(["é" * 40] * 2), np.array(["wall", "é" * 40])):  # 80 bytes > 64
+        bad = _events(2, 2)
+        bad["surface"] = batch
+        with pytest.raises(ValueError, match="UTF-8 bytes"):
+            w.deposits(bad)
+    w.finish({"emitted_mass": 1.0, "deposited_mass": 0.0, "escaped_mass": 0.0, "collection_efficiency": 0.0,
+              "state": ParticleState()})
+    assert list(open_results(p).deposits["surface"]) == ["plaque nord é"] * 3 + ["wall", "plaque nord é", "wall"]
+
+
 def test_checkpoint_round_trip_bitwise(tmp_path):
     rng = np.random.default_rng(12345)
     rng.random(7)

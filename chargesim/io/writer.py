@@ -110,6 +110,13 @@ def _encode_names(values, what):
     arr = np.asarray(values)
     if arr.dtype.kind in "iu":
         raise ValueError(f"{what} must hold names (str), got integers")
+    if arr.size and arr.dtype.kind == "U" and bool((arr == arr.flat[0]).all()):
+        # a batch of events on one surface, the usual case: one name, no sort
+        # (np.unique took 60 us of the 100 us of a step's deposits call)
+        b = str(arr.flat[0]).encode("utf-8")
+        if len(b) > S.NAME_BYTES:
+            raise ValueError(f"{what}: names are limited to {S.NAME_BYTES} UTF-8 bytes")
+        return np.full(arr.shape, b, dtype=S.name_dtype())
     # few distinct names, many events: encode each name once
     uniq, inv = np.unique(arr.astype(str), return_inverse=True)
     enc = [u.encode("utf-8") for u in uniq.tolist()]

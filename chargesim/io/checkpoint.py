@@ -30,7 +30,8 @@ from .schema import CHECKPOINT_FORMAT, FORMAT_VERSION
 def _plain(value):
     """True for a value that JSON gives back as it was: None, bool, int,
     float (repr round trip, NaN and inf included), str, and lists and
-    str-keyed dicts of those (a tuple would come back as a list)."""
+    str-keyed dicts of those (a tuple would come back as a list, a numpy
+    scalar as a Python one: both keep their own nodes)."""
     if value is None or isinstance(value, (bool, int, float, str)):
         return not isinstance(value, np.generic)
     if isinstance(value, list):

@@ -54,6 +54,21 @@ def build(n, run_length, seed=1, coulomb=False):
                       diagnostics_every=max(1, run_length // 200), checkpoint_every=max(1, run_length // 10))
 
 
+def _time_steps(sim):
+    """Add up the wall time of the simulation's physics steps in ``sim.step_seconds``."""
+    sim.step_seconds = 0.0
+    advance = sim.advance
+
+    def timed(dt):
+        t = time.perf_counter()
+        try:
+            return advance(dt)
+        finally:
+            sim.step_seconds += time.perf_counter() - t
+    sim.advance = timed
+    return sim
+
+
 class _Timed:
     """Wraps the writer to add up the time spent in its calls."""
 
@@ -96,19 +111,20 @@ def main():
     from chargesim.io import ResultsWriter
 
     build(1000, 10).run(steps=2)  # compile the kernels once
-    keys = ("bare", "bare_cpu", "wall", "cpu", "inside", "busy", "size", "paired")
+    keys = ("bare", "bare_cpu", "wall", "cpu", "inside", "busy", "size", "paired", "bare_steps", "outside")
     rec = {L: {k: [] for k in keys} for L in lengths}
     with tempfile.TemporaryDirectory() as tmp:
         for r in range(reps):
             for L in lengths:
                 m = rec[L]
-                sim = build(n, L, coulomb=args.coulomb)
+                sim = _time_steps(build(n, L, coulomb=args.coulomb))
                 t, c = time.perf_counter(), time.process_time()
                 sim.run(steps=steps[L])
                 m["bare"].append(time.perf_counter() - t)
                 m["bare_cpu"].append(time.process_time() - c)
+                m["bare_steps"].append(sim.step_seconds)
                 path = os.path.join(tmp, f"run{r}_{L}.h5")
-                sim = build(n, L, coulomb=args.coulomb)
+                sim = _time_steps(build(n, L, coulomb=args.coulomb))
                 writer = ResultsWriter(path, scenario_text="benchmark channel", seed=1)
                 w = _Timed(writer)
                 t, c = time.perf_counter(), time.process_time()
@@ -117,6 +133,10 @@ def main():
                 m["cpu"].append(time.process_time() - c)
                 m["inside"].append(w.seconds)
                 m["paired"].append((m["wall"][-1] - m["bare"][-1]) / m["bare"][-1])
+                # the run's time outside its physics steps (recorder calls, diagnostics, snapshots,
+                # start and finish), against the time of those steps: blind to the drift of the
+                # machine's other load, which moves the steps of both runs alike
+                m["outside"].append((m["wall"][-1] - sim.step_seconds) / sim.step_seconds)
                 # 0 for a writer without a thread (an older commit, benchmarked for comparison)
                 m["busy"].append(getattr(writer, "background_seconds", 0.0))
                 m["size"].append(os.path.getsize(path) + os.path.getsize(os.path.splitext(path)[0] + ".xdmf"))
@@ -125,7 +145,7 @@ def main():
     print(f"HDF5 results writer, N = {n}, {reps} rounds, {numba.get_num_threads()} threads, "
           f"space charge {'on' if args.coulomb else 'off'} (medians)")
     print(f"{'cadence of a run of':<20}{'timed':>7}{'frames':>7}{'bare s':>8}{'seconds':>9}{'overhead':>10}"
-          f"{'paired':>8}{'CPU':>8}{'in calls':>9}{'thread':>8}{'MB':>7}{'MB/s':>7}")
+          f"{'paired':>8}{'outside':>9}{'steps':>8}{'CPU':>8}{'in calls':>9}{'thread':>8}{'MB':>7}{'MB/s':>7}")
     raw_row = 8 + 24 + 24 + 8 + 8 + 8 + 4
     for L in lengths:
         m = rec[L]
@@ -135,10 +155,15 @@ def main():
         tr, cr, ti, tw, size = med(m["wall"]), med(m["cpu"]), med(m["inside"]), med(m["busy"]), med(m["size"])
         writing = tw if tw > 0 else ti  # the thread's writing, or the calls' for a writer without a thread
         print(f"{f'{L} steps (every {every})':<20}{steps[L]:>7}{frames:>7}{tb:>8.2f}{tr:>9.3f}"
-              f"{100 * (tr - tb) / tb:>9.1f}%{100 * med(m['paired']):>7.1f}%{100 * (cr - cb) / cb:>7.1f}%"
+              f"{100 * (tr - tb) / tb:>9.1f}%{100 * med(m['paired']):>7.1f}%{100 * med(m['outside']):>8.1f}%"
+              f"{med(m['bare_steps']) / tb:>8.4f}{100 * (cr - cb) / cb:>7.1f}%"
               f"{100 * ti / tr:>8.1f}%{tw:>8.2f}{size / 1e6:>7.1f}{size / 1e6 / writing:>7.0f}")
     print("timed: steps in each timed run; bare s: the run without a recorder; overhead: ratio of the medians;")
     print("paired: median of each recorded run against the bare run of its round;")
+    print("outside: median over recorded runs of their time outside the physics steps against the steps' time")
+    print("(the steadiest measure here: the writer thread's share of a slowdown of the steps is not in it, and")
+    print("'paired' shows whether there is one); steps: share of the bare run spent in its steps (the rest is")
+    print("the loop's own bookkeeping);")
     print("CPU: process CPU time (all threads) against the bare run's; in calls: share of the run spent in the")
     print("writer's calls; thread: seconds the writer thread spent writing; MB on disk and MB/s of that thread.")
     print(f"goal: overhead <= 5 % at the default cadence (raw frame data {n * raw_row / 1e6:.1f} MB a frame)")

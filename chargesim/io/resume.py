@@ -51,7 +51,8 @@ def _copy_prefix(src, dst, n, ckw_from):
     name = src.name.rsplit("/", 1)[1]
     ds = dst.create_dataset(name, shape=(n,) + src.shape[1:], maxshape=src.maxshape, dtype=src.dtype,
                             chunks=src.chunks, compression=src.compression,
-                            compression_opts=src.compression_opts, shuffle=src.shuffle)  # same filters
+                            compression_opts=src.compression_opts, shuffle=src.shuffle,
+                            scaleoffset=src.scaleoffset)  # same filters
     step = max(1, 1 << 20)
     for lo in range(0, n, step):
         hi = min(n, lo + step)

@@ -66,6 +66,14 @@ _FRAME_CHUNK = 16384
 _EVENT_CHUNK = 1024
 _DIAG_CHUNK = 1024  # frame index and diagnostics step/time: 8 bytes a row
 _DIAG_VALUE_CHUNK = 64  # diagnostics values: 64 columns of 8 bytes a row
+#: Filter of the integer frame columns (id, population) when compressing:
+#: HDF5's scale-offset filter, lossless for integers (each chunk stores its
+#: minimum and the differences in as few bits as they need), built into every
+#: HDF5 library. Measured per frame of 1e5 particles on the writer thread:
+#: 2.6 + 1.6 ms for id + population against 4.6-7.4 + 1.9-2.4 ms with deflate
+#: and shuffle, for 0.2 MB on disk against 0.09 MB (of 8.4 MB a frame); the
+#: thread's CPU is what slows the run's steps beside it.
+_INT_FRAME_KW = {"scaleoffset": 0}
 #: Most bytes of copied records waiting for the writer thread (an item larger
 #: than this still goes, alone): the run waits rather than fill the memory
 #: when the disk is slower than the run.
@@ -154,7 +162,9 @@ class ResultsWriter:
         Replace an existing ``path`` at ``finish``; else ``FileExistsError``.
     compression : {"gzip", "lzf", None}
         Filter of the appendable datasets (deflate level 1 + shuffle for
-        "gzip", which every HDF5 reader has; "lzf" needs h5py's plugin).
+        "gzip", which every HDF5 reader has; "lzf" needs h5py's plugin). The
+        integer frame columns use HDF5's scale-offset filter instead
+        (lossless, cheaper to write), None: no filter at all.
     frame_float_compression : {"gzip", "lzf", None}
         Filter of the floating-point frame columns (position, velocity,
         charge, diameter). Default None: measured on 1e5 particles, deflate
@@ -272,7 +282,7 @@ class ResultsWriter:
         for name, (dt, unit) in S.FRAME_INDEX.items():
             self._rows(fr, name, dt, (), unit, _DIAG_CHUNK)
         for name, (dt, shp, unit) in S.FRAME_SCHEMA.items():
-            ckw = self._fkw if np.dtype(dt).kind == "f" else self._ckw
+            ckw = self._fkw if np.dtype(dt).kind == "f" else _INT_FRAME_KW if self._ckw else {}
             self._rows(fr, name, dt, shp, unit, _FRAME_CHUNK, ckw)
         for gname in ("deposits", "escapes"):
             g = f.create_group(gname)

@@ -366,18 +366,20 @@ class Simulation:
                 sel = np.flatnonzero(hit & ((which < self._n_collectors) == is_dep))
                 if sel.size == 0:
                     continue
-                mass = s.mass[sel]
+                # fancy indexing copies: the records share no memory with the state
+                d = s.diameter[sel]
+                mass = (math.pi / 6.0) * d * d * d * s.density[sel]  # ParticleState.mass, of these rows only
                 rec = {
-                    "id": s.id[sel].copy(),
+                    "id": s.id[sel],
                     "time": self.time + best[sel] * dt,
-                    "position": point[sel].copy(),
-                    "velocity": s.velocity[sel].copy(),
+                    "position": point[sel],
+                    "velocity": s.velocity[sel],
                     "surface": names[which[sel]],
-                    "charge": s.charge[sel].copy(),
+                    "charge": s.charge[sel],
                     "mass": mass,
-                    "diameter": s.diameter[sel].copy(),
-                    "weight": s.weight[sel].copy(),
-                    "population": s.population[sel].copy(),
+                    "diameter": d,
+                    "weight": s.weight[sel],
+                    "population": s.population[sel],
                 }
                 real = rec["weight"] * mass
                 key = "deposited" if is_dep else "escaped"

@@ -3,9 +3,10 @@
 A charged dust cloud drifts in a uniform field through still air between
 two collecting plates (drag-exact integrator, Coulomb method "auto", particle
 radii). For each N the script times whole steps and, inside them, the Coulomb
-evaluations, and prints medians over the timed steps:
+evaluations, and prints medians over the timed steps (at least 7, and at
+least 2 s of them):
 
-    N  method  step [ms]  coulomb [ms]  outside share  particle-steps/s
+    N  method  steps  step [ms]  coulomb [ms]  outside share  particle-steps/s
 
 Each size is also timed with Coulomb off: the loop's own rate (integrator,
 drag, sources, collectors, bookkeeping). "outside share" is the part of a step spent outside the Coulomb evaluation
@@ -16,6 +17,7 @@ at N = 1e5 on the 2-core reference machine. The peak memory of the step
 Usage: python benchmarks/bench_motion.py [--quick] [--steps K] [--sizes 1000,10000]
 """
 import argparse
+import math
 import statistics
 import time
 import tracemalloc
@@ -65,10 +67,15 @@ class _Timed:
         _forces.Coulomb.field = self._orig
 
 
-def measure(n, steps, coulomb=True):
+def measure(n, steps, coulomb=True, min_seconds=2.0):
     system = build(n, coulomb=coulomb)
     sim = Simulation(system, dt=1e-3, diagnostics_every=0)
     sim.run(steps=2)  # compile, build caches
+    t = time.perf_counter()
+    sim.run(steps=1)
+    # at least min_seconds of timed steps: 7 steps of 5 ms (N = 1e3) gave an
+    # outside share that moved by 3 points between runs of the script
+    steps = max(steps, math.ceil(min_seconds / (time.perf_counter() - t)))
     step_times, coul_times = [], []
     with _Timed() as timer:
         for _ in range(steps):
@@ -84,26 +91,29 @@ def measure(n, steps, coulomb=True):
     step = statistics.median(step_times)
     coul = statistics.median(coul_times)
     method = system.coulomb.method_for(system.state.n) if coulomb else "off"
-    return {"n": n, "method": method, "step": step, "coulomb": coul,
+    return {"n": n, "method": method, "steps": steps, "step": step, "coulomb": coul,
             "outside": (step - coul) / step, "rate": system.state.n / step, "bytes": peak / n}
 
 
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="N = 1e3 and 1e4, few steps")
-    ap.add_argument("--steps", type=int, default=None, help="timed steps per size")
+    ap.add_argument("--steps", type=int, default=None, help="fewest timed steps per size (default 7; quick 3)")
+    ap.add_argument("--min-seconds", type=float, default=None,
+                    help="time at least this long per size, in more steps if needed (default 2; quick 0.5)")
     ap.add_argument("--sizes", type=str, default=None, help="comma-separated particle counts")
     args = ap.parse_args(argv)
     sizes = [1000, 10000] if args.quick else [1000, 10000, 100000]
     if args.sizes:
         sizes = [int(float(x)) for x in args.sizes.split(",")]
     steps = args.steps or (3 if args.quick else 7)
-    print(f"{'N':>8} {'method':>8} {'step [ms]':>10} {'coulomb [ms]':>13} {'outside':>8} "
+    min_seconds = args.min_seconds if args.min_seconds is not None else (0.5 if args.quick else 2.0)
+    print(f"{'N':>8} {'method':>8} {'steps':>6} {'step [ms]':>10} {'coulomb [ms]':>13} {'outside':>8} "
           f"{'particle-steps/s':>17} {'peak B/particle':>16}")
     for n in sizes:
         for on in (True, False):  # with space charge, then the loop alone
-            r = measure(n, steps, coulomb=on)
-            print(f"{r['n']:>8d} {r['method']:>8} {1e3 * r['step']:>10.2f} {1e3 * r['coulomb']:>13.2f} "
+            r = measure(n, steps, coulomb=on, min_seconds=min_seconds)
+            print(f"{r['n']:>8d} {r['method']:>8} {r['steps']:>6d} {1e3 * r['step']:>10.2f} {1e3 * r['coulomb']:>13.2f} "
                 f"{100 * r['outside']:>7.1f}% {r['rate']:>17.3g} {r['bytes']:>16.0f}")
 
 

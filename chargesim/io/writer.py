@@ -167,10 +167,10 @@ class ResultsWriter:
         (lossless, cheaper to write), None: no filter at all.
     frame_float_compression : {"gzip", "lzf", None}
         Filter of the floating-point frame columns (position, velocity,
-        charge, diameter). Default None: measured on 1e5 particles, deflate
-        shrinks them by only ~15 % at 10-20x the write time, which would
-        dominate the output overhead; the integer and repeated columns
-        compress ~100x and keep ``compression``.
+        charge, diameter, weight). Default None: measured on 1e5 particles,
+        deflate shrinks them by only ~15 % at 10-20x the write time, which
+        would dominate the output overhead; the integer columns take the
+        scale-offset filter (see ``compression``).
     flush_interval : float
         Longest wall-clock time, s, between hand-overs of deposit, escape
         and diagnostics records to the writer thread, which writes and

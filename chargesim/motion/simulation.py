@@ -35,7 +35,7 @@ from .inlets import Inlet, Population
 from .integrators import FRESH, StepControl, make_integrator
 from .medium import Medium
 from .recorder import EVENT_FIELDS
-from .state import ParticleState
+from .state import ParticleState, sphere_mass
 from .zones import ChargingZone
 from .._validate import vector as _vector
 
@@ -178,7 +178,7 @@ class System:
 
 
 @numba.njit(cache=True)
-def _energy_sums(v, w, d, rho, q, pot):
+def _particle_sums(v, w, d, rho, q, pot):
     """In one pass: the kinetic energy sum_i w_i m_i |v_i|^2 / 2 with
     m_i = (pi/6) d_i^3 rho_i, the charge sum_i w_i q_i, and the applied
     energy sum_i w_i q_i pot_i (0 when ``pot`` is empty). numpy's einsum and
@@ -190,7 +190,7 @@ def _energy_sums(v, w, d, rho, q, pot):
     qp = 0.0
     with_pot = pot.size == w.size
     for i in range(w.size):
-        m = (math.pi / 6.0) * d[i] * d[i] * d[i] * rho[i]
+        m = (math.pi / 6.0) * d[i] * d[i] * d[i] * rho[i]  # state.sphere_mass, inline
         e += w[i] * m * (v[i, 0] * v[i, 0] + v[i, 1] * v[i, 1] + v[i, 2] * v[i, 2])
         wq = w[i] * q[i]
         qt += wq
@@ -368,7 +368,7 @@ class Simulation:
                     continue
                 # fancy indexing copies: the records share no memory with the state
                 d = s.diameter[sel]
-                mass = (math.pi / 6.0) * d * d * d * s.density[sel]  # ParticleState.mass, of these rows only
+                mass = sphere_mass(d, s.density[sel])  # of these rows only, not the whole state
                 rec = {
                     "id": s.id[sel],
                     "time": self.time + best[sel] * dt,
@@ -561,7 +561,7 @@ class Simulation:
         sys_ = self.system
         s = sys_.state
         pot = sys_.field_model.applied_potential(s.position)
-        kin, qtot, qpot = _energy_sums(s.velocity, s.weight, s.diameter, s.density, s.charge,
+        kin, qtot, qpot = _particle_sums(s.velocity, s.weight, s.diameter, s.density, s.charge,
                                        _NO_POTENTIAL if pot is None else pot)
         coul = math.nan
         if sys_.coulomb is not None and s.n <= self.energy_max_n:

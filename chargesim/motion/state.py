@@ -61,6 +61,12 @@ def _points(value, name, n=None):
     return arr
 
 
+def sphere_mass(diameter, density):
+    """Mass of spheres, kg: (pi/6) d^3 rho, in this order of operations (the
+    run's masses, whole state or some rows, are the same bits)."""
+    return (math.pi / 6.0) * diameter * diameter * diameter * density
+
+
 @numba.njit(cache=True)
 def _keep_rows(arr, alive):
     """Move the rows i with alive[i] to the front of ``arr`` (n, k), in order.
@@ -142,8 +148,7 @@ class ParticleState:
     @property
     def mass(self):
         """Mass of one real particle, kg (sphere of the given density)."""
-        d = self.diameter
-        return (math.pi / 6.0) * d * d * d * self.density
+        return sphere_mass(self.diameter, self.density)
 
     # -- changes ---------------------------------------------------------------
     def add(self, position, velocity=0.0, *, diameter, density, eps_p=np.inf, charge=0.0, weight=1.0,

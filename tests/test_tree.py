@@ -11,6 +11,8 @@ against textbook results and fmm3dpy in test_direct.py), fmm3dpy (general-
 purpose reference library for Laplace sums), and exact results named beside
 each check. Sources are named beside each check (see REFERENCES.md).
 """
+import math
+
 import numba
 import numpy as np
 import pytest
@@ -434,8 +436,9 @@ def _monos(points, p):
     return out
 
 
-def _local_expansion(s, q, r_vec):
-    """Local coefficients at a target centre R = r_vec from charges q at s (source centre 0)."""
+def _local_expansion(s, q, r_vec, single=False, qscale=1.0):
+    """Local coefficients at a target centre R = r_vec from charges q at s (source centre 0), the
+    translation in double or single precision (charges in units of ``qscale``)."""
     from chargesim.coulomb import _tree_kernels as _k
 
     raw = (q @ _monos(s, tree._mp.ORDER))[None, :]
@@ -446,10 +449,12 @@ def _local_expansion(s, q, r_vec):
     nd = np.zeros((1, _k.NODE_COLS))
     ncl = tree._LOCAL_SCALE.size
     loc = np.zeros(ncl)
+    dt = np.float32 if single else np.float64
     _k._local_coefficients(nd, mm, np.zeros(1, np.int64), 1, r_vec[0], r_vec[1], r_vec[2],
-                           np.empty((mm.shape[1], 1)), np.empty((ncl, 1)), np.empty((4, 1)), tree._DIDX,
-                           tree._DCOEF, tree._DERIV, tree._M2L_ROWS, tree._UNFOLD, tree._LOCAL_SCALE,
-                           np.empty(ncl + 1), loc)
+                           np.empty((mm.shape[1], 1), dt), np.empty((ncl, 1), dt), np.empty((4, 1), dt), tree._DIDX,
+                           tree._DCOEF32 if single else tree._DCOEF, tree._DERIV, tree._M2L_ROWS, tree._UNFOLD,
+                           tree._LOCAL_SCALE, tree._RED_PTR, tree._COMP_ORDER, qscale, float(r_vec @ r_vec),
+                           np.empty(tree._COMP_ORDER.max() + 1), np.empty(ncl + 1, dt), loc)
     return loc
 
 
@@ -515,3 +520,33 @@ def test_local_expansion_equals_the_truncated_legendre_series():
     cos = (u @ r_vec) / (un * rn)
     ref = sum((q * un**j * eval_legendre(j, cos)).sum(axis=1) / rn ** (j + 1) for j in range(tree._mp.ORDER + 1))
     np.testing.assert_allclose(phi, ref, rtol=1e-12, atol=1e-14 * np.abs(ref).max())
+    # the single-precision translation (asked accuracies from 1e-4 up), in
+    # units far outside single precision's range (1e-20 m, 1e-25 C): the
+    # same series to single precision's rounding
+    for length, charge in ((1.0, 1.0), (1e-20, 1e-25)):
+        loc = _local_expansion(s * length, q * charge, r_vec * length, single=True,
+                               qscale=math.ldexp(1.0, math.frexp(charge)[1]))
+        phi = _monos(t * length, tree._mp.ORDER) @ loc
+        np.testing.assert_allclose(phi, ref * (charge / length), rtol=2e-6, atol=2e-6 * np.abs(ref * charge / length).max())
+
+
+def test_single_precision_translations_fall_back_over_a_wide_range_of_distances():
+    # reference: direct sum. Two clusters 1e-7 across, 4e-6 apart on either
+    # side of a cell face, an outlier and a background filling half the box:
+    # the small clusters' nodes translate each other (distances ~4e-6) and
+    # background nodes (~0.5), a ratio of 1.8e5 (measured), beyond
+    # tree.SINGLE_M2L_RANGE, so those translations run in double precision
+    rng = _rng(33)
+    sep = 2e-6
+    c1 = np.array([0.5 - sep, 0.3, 0.3]) + rng.normal(size=(1000, 3)) * sep / 20
+    c2 = np.array([0.5 + sep, 0.3, 0.3]) + rng.normal(size=(1000, 3)) * sep / 20
+    back = rng.random((4000, 3)) * [0.5, 1.0, 1.0] + [0.5, 0.0, 0.0]
+    pos = np.concatenate([c1, c2, back, np.zeros((1, 3))])
+    q = _mixed(rng, pos.shape[0])
+    idx = np.arange(0, pos.shape[0], 10)
+    e_ref, p_ref = _self_reference(pos, q, idx)
+    e, p = tree.evaluate(pos, q, None, None, accuracy=1e-3)
+    assert np.all(np.isfinite(e)) and np.all(np.isfinite(p))
+    for part in (slice(0, 200), slice(200, None)):
+        assert _err(e[idx][part], e_ref[part]) <= 1e-3
+        assert _err(p[idx][part], p_ref[part]) <= 1e-3

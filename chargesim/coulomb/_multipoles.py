@@ -206,6 +206,13 @@ def m2l_table(p=ORDER):
             moment_scale, local_scale)
 
 
+def orders(p=ORDER):
+    """Total order |m| of each component (all of them) and of each reduced moment (m_z <= 1), int64."""
+    comps = _components(p)
+    return (np.array([sum(m) for m in comps], np.int64),
+            np.array([sum(m) for m in comps if m[2] <= 1], np.int64))
+
+
 def block_rows(rows, ncomp, width=4):
     """M2L terms grouped by moment, ``width`` local coefficients at a time.
 

@@ -648,30 +648,63 @@ def _near_spheres32(xi, yi, zi, ri, sx, sy, sz, sq, sr, n, close2, need_pot):
     return ax, ay, az, p, c
 
 
-@numba.njit(inline="always", fastmath=_FM, error_model="numpy")
-def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef, deriv, rows, unfold, local_scale,
-                        gk, loc):
-    """Add the local expansion about (gx, gy, gz) of the nodes in ``mlist`` to ``loc`` (M2L).
-
-    Vectorised across the nodes: reduced moments gathered into ``am``
-    (component, node), the derivatives of 1/|R| built by their recurrence
-    in ``dm``, then one dot product over the nodes per translation term
-    (see :func:`chargesim.coulomb._multipoles.m2l_table`); ``gk`` scratch.
-    """
-    nred = mm.shape[1]
+@numba.njit(inline="always")
+def _distance_range(nd, mlist, nm, gx, gy, gz):
+    """Smallest and largest squared distance from (gx, gy, gz) to the centres of the nodes ``mlist[:nm]``."""
+    lo = np.inf
+    hi = 0.0
     for f in range(nm):
         k = mlist[f]
         rx = gx - nd[k, 0]
         ry = gy - nd[k, 1]
         rz = gz - nd[k, 2]
+        d2 = rx * rx + ry * ry + rz * rz
+        lo = min(lo, d2)
+        hi = max(hi, d2)
+    return lo, hi
+
+
+@numba.njit(inline="always", fastmath=_FM, error_model="numpy")
+def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef, deriv, rows, unfold, local_scale,
+                        red_ptr, comp_order, qscale, d2min, wpow, gk, loc):
+    """Add the local expansion about (gx, gy, gz) of the nodes in ``mlist`` to ``loc`` (M2L).
+
+    Vectorised across the nodes: reduced moments gathered into ``am``
+    (component, node), the derivatives of 1/|R| built by their recurrence
+    in ``dm``, then one dot product over the nodes per translation term
+    (see :func:`chargesim.coulomb._multipoles.m2l_table`); ``gk``, ``wpow``
+    scratch. Lengths are in units of rho = sqrt(``d2min``), the distance of
+    the nearest of the nodes (:func:`_distance_range`), and charges in units of ``qscale``: then every |R| >= 1, the
+    derivatives are at most of order m!, and the moments of order n at most
+    of order (theta |R|)^n. The scratch arrays ``am``, ``dm``, ``geo``,
+    ``gk`` and the table ``dcoef`` may be single precision (``float32``,
+    twice the lanes): the caller keeps the nodes' distances within a range
+    where that neither overflows nor underflows. ``loc`` is double
+    precision, in the units of the inputs.
+    """
+    gk[0] = 0.0
+    zero = gk[0]  # of the scratch's precision
+    irho = 1.0 / np.sqrt(d2min)
+    w = 1.0 / qscale
+    for o in range(wpow.size):
+        wpow[o] = w
+        w *= irho
+    for f in range(nm):
+        k = mlist[f]
+        rx = (gx - nd[k, 0]) * irho
+        ry = (gy - nd[k, 1]) * irho
+        rz = (gz - nd[k, 2]) * irho
         geo[0, f] = rx
         geo[1, f] = ry
         geo[2, f] = rz
         ir2 = 1.0 / (rx * rx + ry * ry + rz * rz)
         geo[3, f] = ir2
         dm[0, f] = np.sqrt(ir2)
-        for c in range(nred):
-            am[c, f] = mm[k, c]
+        # reduced moments come in blocks of equal order (red_ptr)
+        for o in range(red_ptr.size - 1):
+            w = wpow[o]
+            for c in range(red_ptr[o], red_ptr[o + 1]):
+                am[c, f] = mm[k, c] * w
     rx = geo[0]
     ry = geo[1]
     rz = geo[2]
@@ -695,7 +728,7 @@ def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef,
             out[f] = (k0 * rx[f] * a0[f] + k1 * ry[f] * a1[f] + k2 * rz[f] * a2[f]
                       + k3 * a3[f] + k4 * a4[f] + k5 * a5[f]) * ir2[f]
     for c in range(gk.size):
-        gk[c] = 0.0
+        gk[c] = zero
     # rows in blocks of four terms sharing one moment (see
     # _multipoles.block_rows): one load of it for four products
     for r in range(rows.shape[0]):
@@ -704,10 +737,10 @@ def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef,
         d2 = dm[rows[r, 6]]
         d3 = dm[rows[r, 7]]
         d4 = dm[rows[r, 8]]
-        s1 = 0.0
-        s2 = 0.0
-        s3 = 0.0
-        s4 = 0.0
+        s1 = zero
+        s2 = zero
+        s3 = zero
+        s4 = zero
         for f in range(nm):
             a = an[f]
             s1 += a * d1[f]
@@ -720,8 +753,13 @@ def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef,
         gk[rows[r, 4]] += s4
     for r in range(unfold.shape[0]):
         gk[unfold[r, 0]] = -gk[unfold[r, 1]] - gk[unfold[r, 2]]
+    # back to the inputs' units: G_k scales as qscale / rho^(|k| + 1)
+    w = qscale * irho
+    for o in range(wpow.size):
+        wpow[o] = w
+        w *= irho
     for c in range(local_scale.size):
-        loc[c] += gk[c] * local_scale[c]
+        loc[c] += np.float64(gk[c]) * local_scale[c] * wpow[comp_order[c]]
 
 
 @numba.njit(inline="always", fastmath=_FM, error_model="numpy")
@@ -899,9 +937,9 @@ def _group_nodes(tfirst, tnchild, g0, g1, tn, counts):
 @numba.njit(parallel=True, fastmath=_FM, cache=True, error_model="numpy")
 def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use_radii,
                  tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0s, g1s,
-                 theta, direct_max, didx, dcoef, rows, unfold, deriv, local_scale, grad_rows,
-                 down_idx, down_coef, down_ptr, parent, axis, n_blocks, single_rel, qscale, need_pot, ex, ey, ez, phi,
-                 nzero):
+                 theta, direct_max, didx, dcoef, dcoef32, rows, unfold, deriv, local_scale, red_ptr, comp_order,
+                 grad_rows, down_idx, down_coef, down_ptr, parent, axis, n_blocks, single_rel, single_range, qscale,
+                 need_pot, ex, ey, ez, phi, nzero):
     """Field and potential sums at the (Morton-sorted) targets, group by group.
 
     For each target group the dual walk (:func:`_traverse`) gives each of its
@@ -932,6 +970,10 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
         ngrad = max(ngrad, grad_rows[r, 2] + 1)
     rel2 = single_rel * single_rel
     nred = mm.shape[1]
+    nw = 0
+    for c in range(ncl):
+        nw = max(nw, comp_order[c] + 1)
+    range2 = single_range * single_range
     for blk in numba.prange(n_blocks):
         ga = (blk * ng) // n_blocks
         gb = ((blk + 1) * ng) // n_blocks
@@ -951,6 +993,11 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
         dm = np.empty((ncl, 256))
         geo = np.empty((4, 256))
         gk = np.empty(ncl + 1)  # one scratch slot for padded terms
+        am32 = np.empty((nred, 256), np.float32)
+        dm32 = np.empty((ncl, 256), np.float32)
+        geo32 = np.empty((4, 256), np.float32)
+        gk32 = np.empty(ncl + 1, np.float32)
+        wpow = np.empty(nw)
         loc = np.empty((64, ncl))
         has = np.empty(64, np.bool_)
         grd = np.empty((3, ncl))
@@ -982,13 +1029,25 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                 cnt = o0[a + 1] - o0[a]
                 if cnt == 0:
                     continue
-                if am.shape[1] < cnt:
-                    am = np.empty((nred, 2 * cnt))
-                    dm = np.empty((ncl, 2 * cnt))
-                    geo = np.empty((4, 2 * cnt))
                 ta = tn[a]
-                _local_coefficients(snd, mm, srt0[o0[a]:o0[a + 1]], cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2],
-                                    am, dm, geo, didx, dcoef, deriv, rows, unfold, local_scale, gk, loc[a])
+                mlist = srt0[o0[a]:o0[a + 1]]
+                d2lo, d2hi = _distance_range(snd, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2])
+                if d2hi <= range2 * d2lo:
+                    if am32.shape[1] < cnt:
+                        am32 = np.empty((nred, 2 * cnt), np.float32)
+                        dm32 = np.empty((ncl, 2 * cnt), np.float32)
+                        geo32 = np.empty((4, 2 * cnt), np.float32)
+                    _local_coefficients(snd, mm, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2], am32, dm32, geo32,
+                                        didx, dcoef32, deriv, rows, unfold, local_scale, red_ptr, comp_order,
+                                        qscale, d2lo, wpow, gk32, loc[a])
+                else:
+                    if am.shape[1] < cnt:
+                        am = np.empty((nred, 2 * cnt))
+                        dm = np.empty((ncl, 2 * cnt))
+                        geo = np.empty((4, 2 * cnt))
+                    _local_coefficients(snd, mm, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2], am, dm, geo,
+                                        didx, dcoef, deriv, rows, unfold, local_scale, red_ptr, comp_order,
+                                        qscale, d2lo, wpow, gk, loc[a])
                 has[a] = True
             # L2L, L'_k = sum_{m >= k} C(m, k) L_m d^(m - k): parents come
             # before their children in tn

@@ -36,6 +36,11 @@ precision over runs of 128 pairs and in double precision over the runs.
 Each pair then carries a relative rounding of ~1e-7; a target with a pair
 too close for that (``SINGLE_CLOSE``), or with an unexpected zero distance,
 is summed again in double precision. Finite radii keep double precision.
+From the same accuracy up the translations (M2L) run in single precision
+too, in units of the distance of the target node's nearest source node and
+of the largest charge (``SINGLE_M2L_RANGE``): 1.4x the translation rate
+(1e5 uniform, single thread), with a relative rounding of the local
+expansions of ~3e-7 (measured).
 (An order-5 multipole evaluated per target for pairs between the two cases
 was tried and dropped: at equal measured error it was no faster. So were
 M2L orders chosen per pair, lower where (r_A + b_B)/d is well below theta:
@@ -81,6 +86,10 @@ _M2L_ROWS = _mp.block_rows(_M2L_TERMS, _LOCAL_SCALE.size)
 _FOLD_ROWS, _FOLD_COLS = (np.ascontiguousarray(a, dtype=np.int64) for a in np.nonzero((_FOLD * _MOMENT_SCALE).T))
 _FOLD_VALS = np.ascontiguousarray((_FOLD * _MOMENT_SCALE).T[_FOLD_ROWS, _FOLD_COLS])
 _GRAD_ROWS = _mp.gradient_table()
+_COMP_ORDER, _RED_ORDER = _mp.orders()
+# the reduced moments of order o are _RED_PTR[o] .. _RED_PTR[o + 1] - 1
+_RED_PTR = np.searchsorted(_RED_ORDER, np.arange(_RED_ORDER.max() + 2)).astype(np.int64)
+_DCOEF32 = _DCOEF.astype(np.float32)
 
 #: Options of this method and their defaults: ``accuracy`` is the asked rms
 #: relative error of the field, sqrt(sum|E - E_exact|^2 / sum|E_exact|^2).
@@ -134,6 +143,15 @@ SINGLE_MIN_ACCURACY = 1e-4
 #: field's 1/r^2) could reach a tenth of the asked accuracy for that pair:
 #: 4 x 2^-24 |x| / r <= accuracy / 10.
 SINGLE_CLOSE = 40.0 * 2.0**-24
+#: From an asked accuracy of SINGLE_MIN_ACCURACY up, the translations
+#: (M2L) of a target node run in single precision too (twice the lanes),
+#: in units of the distance rho of its nearest source node (and charges of
+#: order 1), when its farthest source node is at most SINGLE_M2L_RANGE x rho
+#: away: the moments of order n, at most of order (theta x range)^n, and the
+#: derivatives of 1/r, of order (1/range)^(n + 1), then stay well inside
+#: single precision's range (1e+-38 against at most 1e28 and 1e-32 at order
+#: 7). Otherwise the node's translations run in double precision.
+SINGLE_M2L_RANGE = 1e4
 #: Range of the opening angle: below 0.1 the tree degenerates into the direct
 #: sum, above 0.75 the expansions converge too slowly to be controlled.
 THETA_RANGE = (0.1, 0.75)
@@ -299,15 +317,17 @@ class Tree:
         nb = _n_blocks(g0.size)
         acc = float(accuracy)
         single_rel = SINGLE_CLOSE / acc if acc >= SINGLE_MIN_ACCURACY else 0.0
+        single_range = SINGLE_M2L_RANGE if acc >= SINGLE_MIN_ACCURACY else 0.0
         old = numba.get_parallel_chunksize()
         numba.set_parallel_chunksize(1)
         try:
             _k.evaluate_fmm(self._start, self._end, self._first, self._nchild, self._nd, self._mm,
                             self._x, self._y, self._z, self._q, self._r, use_radii,
                             tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0, g1,
-                            theta, int(DIRECT_MAX), _DIDX, _DCOEF, _M2L_ROWS, _UNFOLD, _DERIV,
-                            _LOCAL_SCALE, _GRAD_ROWS,
-                            _DOWN_IDX, _DOWN_COEF, _DOWN_PTR, _PARENT, _AXIS, nb, single_rel, self._qscale,
+                            theta, int(DIRECT_MAX), _DIDX, _DCOEF, _DCOEF32, _M2L_ROWS, _UNFOLD, _DERIV,
+                            _LOCAL_SCALE, _RED_PTR, _COMP_ORDER, _GRAD_ROWS,
+                            _DOWN_IDX, _DOWN_COEF, _DOWN_PTR, _PARENT, _AXIS, nb, single_rel, single_range,
+                            self._qscale,
                             bool(need_potential), ex, ey, ez, phi, nzero)
         finally:
             numba.set_parallel_chunksize(old)

@@ -527,7 +527,9 @@ def _near_points32(xi, yi, zi, sx, sy, sz, sq, n, close2):
     pairs closer than sqrt(``close2``) (> 0), coincident ones included: the
     caller sums a target again in double precision when it differs from the
     one expected. (A count vectorises; a running minimum of the distance
-    did not, and took 4x the time.)"""
+    did not, and took 4x the time. The count of a run is kept in single
+    precision, exact up to 2^24, in the lanes of the sums: an integer count
+    took 1.25x the time.)"""
     zero = np.float32(0.0)
     one = np.float32(1.0)
     ax = 0.0
@@ -540,6 +542,7 @@ def _near_points32(xi, yi, zi, sx, sy, sz, sq, n, close2):
         by = zero
         bz = zero
         bp = zero
+        bc = zero
         for j in range(j0, min(j0 + _RUN32, n)):
             dx = xi - sx[j]
             dy = yi - sy[j]
@@ -554,11 +557,12 @@ def _near_points32(xi, yi, zi, sx, sy, sz, sq, n, close2):
             by += s3 * dy
             bz += s3 * dz
             bp += s
-            c += 1 if r2 < close2 else 0
+            bc += one if r2 < close2 else zero
         ax += np.float64(bx)
         ay += np.float64(by)
         az += np.float64(bz)
         p += np.float64(bp)
+        c += int(bc)
     return ax, ay, az, p, c
 
 
@@ -618,6 +622,7 @@ def _near_spheres32(xi, yi, zi, ri, sx, sy, sz, sq, sr, n, close2, need_pot):
         by = zero
         bz = zero
         bp = zero
+        bc = zero
         for j in range(j0, min(j0 + _RUN32, n)):
             dx = xi - sx[j]
             dy = yi - sy[j]
@@ -640,11 +645,12 @@ def _near_spheres32(xi, yi, zi, ri, sx, sy, sz, sq, sr, n, close2, need_pot):
                 pot = half * (three * a2 - r2) * inv3 if inside else invd
                 pot = sq[j] * pot if live else zero
                 bp += pot
-            c += 1 if r2 < close2 else 0
+            bc += one if r2 < close2 else zero
         ax += np.float64(bx)
         ay += np.float64(by)
         az += np.float64(bz)
         p += np.float64(bp)
+        c += int(bc)
     return ax, ay, az, p, c
 
 
@@ -822,12 +828,32 @@ def _push(tag, val, n, t, v):
     return tag, val, n + 1
 
 
+@numba.njit(inline="always")
+def _accept(snd, tnd, ta, k, th2, direct_max):
+    """Whether target node ``ta`` takes source node ``k`` by a local expansion:
+    (r_A + b_B) < theta d (``th2`` = theta^2), no target sphere can overlap a
+    source sphere (d - r_A - b_B > the larger particle radius), and B holds
+    more than ``direct_max`` particles."""
+    if snd[k, 5] <= direct_max:
+        return False
+    rab = tnd[ta, 3] + snd[k, 3]
+    dx = snd[k, 0] - tnd[ta, 0]
+    dy = snd[k, 1] - tnd[ta, 1]
+    dz = snd[k, 2] - tnd[ta, 2]
+    d2 = dx * dx + dy * dy + dz * dz
+    overlap = max(snd[k, 4], tnd[ta, 4])
+    # in squares
+    return rab * rab < th2 * d2 and d2 > (rab + overlap) ** 2
+
+
 @numba.njit(cache=True)
-def _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, theta, direct_max, pa, pb, lists, counts):
+def _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, pend_off, pend_src, theta, direct_max, pa, pb, lists,
+              counts):
     """Dual walk of one target group's nodes ``tn[:ntn]`` against the source tree.
 
-    Pairs (target node A, source node B) start at (each top node of the
-    group, source root). A pair goes
+    Pairs (target node A, source node B) start at each top node of the
+    group with the source nodes the upper walk left it (:func:`upper_walk`,
+    ``pend_src[pend_off[A]:pend_off[A + 1]]``). A pair goes
     - to A's local expansion (list 0) when (r_A + b_B) < theta d (d the
       distance of their centres, r_A and b_B their radii: the Taylor series
       of 1/|R + t - s| converges with ratio below theta), no target sphere
@@ -845,41 +871,34 @@ def _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, theta, direct_max, pa
     n1 = 0
     sp = 0
     for a in range(ntn):
-        if counts[a] == -1:  # a top node of the group
-            if sp == pa.size:
-                pa = _grow(pa, 2 * sp)
-                pb = _grow(pb, 2 * sp)
-            pa[sp] = a
-            pb[sp] = 0
-            sp += 1
+        if counts[a] == -1:  # a top node of the group: its pairs from the upper walk
+            ta = tn[a]
+            # pushed in reverse, so that they are taken in the upper walk's order
+            for u in range(pend_off[ta + 1] - 1, pend_off[ta] - 1, -1):
+                if sp == pa.size:
+                    pa = _grow(pa, 2 * sp)
+                    pb = _grow(pb, 2 * sp)
+                pa[sp] = a
+                pb[sp] = pend_src[u]
+                sp += 1
     th2 = theta * theta
     while sp > 0:
         sp -= 1
         a = pa[sp]
         k = pb[sp]
         ta = tn[a]
-        ra = tnd[ta, 3]
-        bb = snd[k, 3]
-        dx = snd[k, 0] - tnd[ta, 0]
-        dy = snd[k, 1] - tnd[ta, 1]
-        dz = snd[k, 2] - tnd[ta, 2]
-        d2 = dx * dx + dy * dy + dz * dz
-        overlap = max(snd[k, 4], tnd[ta, 4])
-        small = snd[k, 5] <= direct_max
-        rab = ra + bb
-        # (r_A + b_B) < theta d and d - r_A - b_B > overlap, in squares
-        if not small and rab * rab < th2 * d2 and d2 > (rab + overlap) ** 2:
+        if _accept(snd, tnd, ta, k, th2, direct_max):
             tag0, val0, n0 = _push(tag0, val0, n0, a, k)
             continue
         a_leaf = tnchild[ta] == 0
-        b_end = small or snchild[k] == 0
+        b_end = snd[k, 5] <= direct_max or snchild[k] == 0
         if a_leaf and b_end:
             tag1, val1, n1 = _push(tag1, val1, n1, a, k)
             continue
         if sp + 8 > pa.size:
             pa = _grow(pa, 2 * pa.size + 8)
             pb = _grow(pb, 2 * pb.size + 8)
-        if not a_leaf and (b_end or ra >= bb):
+        if not a_leaf and (b_end or tnd[ta, 3] >= snd[k, 3]):
             # open A: its children are consecutive in tn from counts[ntn + a]
             for c in range(tnchild[ta]):
                 pa[sp] = counts[ntn + a] + c
@@ -934,12 +953,164 @@ def _group_nodes(tfirst, tnchild, g0, g1, tn, counts):
     return tn, counts, ntn
 
 
+@numba.njit(cache=True)
+def upper_walk(snd, sfirst, snchild, tnd, tfirst, tnchild, g0s, g1s, theta, direct_max):
+    """Dual walk of the target nodes above the groups (the upper nodes) against the source tree.
+
+    The upper nodes are the strict ancestors of the groups' top nodes; each
+    child of an upper node is an upper node or a top node. Pairs (A, B)
+    start at (target root, source root) and go as in :func:`_traverse`:
+    to A's local expansion when A takes B (:func:`_accept`), else the
+    larger of A and B is opened (A when B is a leaf or small; an upper node
+    is never a leaf). A pair whose A is a top node is left to that group's
+    walk. So the far field common to a group's targets is translated once,
+    at the highest node it is far from, and shifted down (L2L), instead of
+    once per group.
+
+    Returns
+    -------
+    up_nodes : int64 (n_up,)
+        Upper nodes, parents before children.
+    par_up : int64 (n_target_nodes,)
+        For an upper or top node: the index in ``up_nodes`` of its parent,
+        -1 for the root or other nodes.
+    m2l_off, m2l_src : int64
+        Source nodes of upper node u's local expansion:
+        m2l_src[m2l_off[u]:m2l_off[u + 1]].
+    pend_off, pend_src : int64
+        Source nodes left to top node A's group walk:
+        pend_src[pend_off[A]:pend_off[A + 1]].
+    """
+    nt = tnd.shape[0]
+    is_top = np.zeros(nt, np.bool_)
+    for g in range(g0s.size):
+        for k in range(g0s[g], g1s[g]):
+            is_top[k] = True
+    par_up = np.full(nt, -1, np.int64)
+    up_index = np.full(nt, -1, np.int64)
+    up_nodes = np.empty(64, np.int64)
+    n_up = 0
+    if not is_top[0]:
+        up_nodes[0] = 0
+        up_index[0] = 0
+        n_up = 1
+        head = 0
+        while head < n_up:
+            k = up_nodes[head]
+            for c in range(tfirst[k], tfirst[k] + tnchild[k]):
+                par_up[c] = head
+                if not is_top[c]:
+                    if n_up == up_nodes.size:
+                        up_nodes = _grow(up_nodes, 2 * n_up)
+                    up_nodes[n_up] = c
+                    up_index[c] = n_up
+                    n_up += 1
+            head += 1
+    th2 = theta * theta
+    pa = np.empty(1024, np.int64)
+    pb = np.empty(1024, np.int64)
+    tag0 = np.empty(1024, np.int64)
+    val0 = np.empty(1024, np.int64)
+    tag1 = np.empty(1024, np.int64)
+    val1 = np.empty(1024, np.int64)
+    n0 = 0
+    n1 = 0
+    pa[0] = 0
+    pb[0] = 0
+    sp = 1
+    while sp > 0:
+        sp -= 1
+        ta = pa[sp]
+        k = pb[sp]
+        if is_top[ta]:
+            tag1, val1, n1 = _push(tag1, val1, n1, ta, k)
+            continue
+        if _accept(snd, tnd, ta, k, th2, direct_max):
+            tag0, val0, n0 = _push(tag0, val0, n0, up_index[ta], k)
+            continue
+        if sp + 8 > pa.size:
+            pa = _grow(pa, 2 * pa.size + 8)
+            pb = _grow(pb, 2 * pb.size + 8)
+        if snd[k, 5] <= direct_max or snchild[k] == 0 or tnd[ta, 3] >= snd[k, 3]:
+            for c in range(tnchild[ta] - 1, -1, -1):
+                pa[sp] = tfirst[ta] + c
+                pb[sp] = k
+                sp += 1
+        else:
+            for c in range(snchild[k] - 1, -1, -1):
+                pa[sp] = ta
+                pb[sp] = sfirst[k] + c
+                sp += 1
+    m2l_off = np.empty(n_up + 1, np.int64)
+    m2l_src = np.empty(n0, np.int64)
+    _bucket(tag0, val0, n0, n_up, m2l_off, m2l_src)
+    pend_off = np.empty(nt + 1, np.int64)
+    pend_src = np.empty(n1, np.int64)
+    _bucket(tag1, val1, n1, nt, pend_off, pend_src)
+    return up_nodes[:n_up].copy(), par_up, m2l_off, m2l_src, pend_off, pend_src
+
+
+@numba.njit(parallel=True, fastmath=_FM, cache=True, error_model="numpy")
+def upper_locals(up_nodes, par_up, m2l_off, m2l_src, snd, mm, tnd, didx, dcoef, dcoef32, deriv, rows, unfold,
+                 local_scale, red_ptr, comp_order, down_idx, down_coef, down_ptr, parent, axis, single_range, qscale,
+                 uloc, uhas):
+    """Local expansions of the upper nodes (:func:`upper_walk`): each one's
+    own translations (M2L, in parallel, single precision as in
+    :func:`evaluate_fmm`), then each parent's shifted to its children (L2L),
+    parents first. Each node's sums run in a fixed order: the results do
+    not depend on the thread count. ``uhas[u]``: u has a local expansion."""
+    n_up = up_nodes.size
+    ncl = local_scale.size
+    nred = mm.shape[1]
+    nw = 0
+    for c in range(ncl):
+        nw = max(nw, comp_order[c] + 1)
+    range2 = single_range * single_range
+    for u in numba.prange(n_up):
+        for c in range(ncl):
+            uloc[u, c] = 0.0
+        cnt = m2l_off[u + 1] - m2l_off[u]
+        uhas[u] = cnt > 0
+        if cnt == 0:
+            continue
+        ta = up_nodes[u]
+        mlist = m2l_src[m2l_off[u]:m2l_off[u + 1]]
+        wpow = np.empty(nw)
+        d2lo, d2hi = _distance_range(snd, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2])
+        if d2hi <= range2 * d2lo:
+            _local_coefficients(snd, mm, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2],
+                                np.empty((nred, cnt), np.float32), np.empty((ncl, cnt), np.float32),
+                                np.empty((4, cnt), np.float32), didx, dcoef32, deriv, rows, unfold, local_scale,
+                                red_ptr, comp_order, qscale, d2lo, wpow, np.empty(ncl + 1, np.float32), uloc[u])
+        else:
+            _local_coefficients(snd, mm, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2], np.empty((nred, cnt)),
+                                np.empty((ncl, cnt)), np.empty((4, cnt)), didx, dcoef, deriv, rows, unfold,
+                                local_scale, red_ptr, comp_order, qscale, d2lo, wpow, np.empty(ncl + 1), uloc[u])
+    dmono = np.empty(ncl)
+    for u in range(1, n_up):
+        p = par_up[up_nodes[u]]
+        if not uhas[p]:
+            continue
+        _shift_local(uloc[u], uloc[p], tnd, up_nodes[u], up_nodes[p], parent, axis, down_idx, down_coef, down_ptr,
+                     dmono)
+        uhas[u] = True
+
+
+@numba.njit(inline="always")
+def _shift_local(out, src, tnd, child, par, parent, axis, down_idx, down_coef, down_ptr, dmono):
+    """out += the local expansion ``src`` about node ``par``'s centre, shifted
+    to node ``child``'s (L2L, L'_k = sum_{m >= k} C(m, k) L_m d^(m - k))."""
+    _monomials(tnd[child, 0] - tnd[par, 0], tnd[child, 1] - tnd[par, 1], tnd[child, 2] - tnd[par, 2], 1.0,
+               parent, axis, dmono)
+    _shift_rows(out, src, dmono, down_idx, down_coef, down_ptr, 0)
+
+
 @numba.njit(parallel=True, fastmath=_FM, cache=True, error_model="numpy")
 def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use_radii,
                  tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0s, g1s,
                  theta, direct_max, didx, dcoef, dcoef32, rows, unfold, deriv, local_scale, red_ptr, comp_order,
                  grad_rows, down_idx, down_coef, down_ptr, parent, axis, n_blocks, single_rel, single_range, qscale,
-                 need_pot, ex, ey, ez, phi, nzero):
+                 up_nodes, par_up, uloc, uhas, pend_off, pend_src, need_pot, ex, ey, ez, phi, nzero):
     """Field and potential sums at the (Morton-sorted) targets, group by group.
 
     For each target group the dual walk (:func:`_traverse`) gives each of its
@@ -1006,8 +1177,8 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
         lv = np.empty((4, 256))
         for g in range(ga, gb):
             tn, counts, ntn = _group_nodes(tfirst, tnchild, g0s[g], g1s[g], tn, counts)
-            pa, pb, l0, l1, n0, n1 = _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, theta,
-                                               direct_max, pa, pb, lists, counts)
+            pa, pb, l0, l1, n0, n1 = _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, pend_off, pend_src,
+                                               theta, direct_max, pa, pb, lists, counts)
             lists = (l0, l1)
             if loc.shape[0] < ntn:
                 loc = np.empty((tn.size, ncl))
@@ -1026,6 +1197,13 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                 has[a] = False
                 for c in range(ncl):
                     loc[a, c] = 0.0
+                if counts[a] == -1:
+                    # a top node starts from its upper parent's expansion
+                    pu = par_up[tn[a]]
+                    if pu >= 0 and uhas[pu]:
+                        _shift_local(loc[a], uloc[pu], tnd, tn[a], up_nodes[pu], parent, axis, down_idx, down_coef,
+                                     down_ptr, dmono)
+                        has[a] = True
                 cnt = o0[a + 1] - o0[a]
                 if cnt == 0:
                     continue
@@ -1049,17 +1227,13 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                                         didx, dcoef, deriv, rows, unfold, local_scale, red_ptr, comp_order,
                                         qscale, d2lo, wpow, gk, loc[a])
                 has[a] = True
-            # L2L, L'_k = sum_{m >= k} C(m, k) L_m d^(m - k): parents come
-            # before their children in tn
+            # L2L: parents come before their children in tn
             for a in range(ntn):
                 pa_ = counts[a]
                 if pa_ < 0 or not has[pa_]:
                     continue
-                ta = tn[a]
-                tp = tn[pa_]
-                _monomials(tnd[ta, 0] - tnd[tp, 0], tnd[ta, 1] - tnd[tp, 1], tnd[ta, 2] - tnd[tp, 2], 1.0,
-                           parent, axis, dmono)
-                _shift_rows(loc[a], loc[pa_], dmono, down_idx, down_coef, down_ptr, 0)
+                _shift_local(loc[a], loc[pa_], tnd, tn[a], tn[pa_], parent, axis, down_idx, down_coef, down_ptr,
+                             dmono)
                 has[a] = True
             for a in range(ntn):
                 ta = tn[a]

@@ -13,8 +13,14 @@ Targets are sorted by Morton code too (the sources themselves, or an octree
 of their own: field grids and probe points) and handled in groups of
 neighbouring targets (the largest target nodes holding at most
 ``GROUP_SIZE`` of them, consecutive small siblings merged), one group at a
-time per thread, in a fixed order whatever the thread count. For each group
-a dual walk pairs its target nodes A with source nodes B:
+time per thread, in a fixed order whatever the thread count. First one walk
+over the target nodes above the groups (the upper nodes) takes the far
+field they share: a source node far from an upper node is translated to it
+once and shifted down to the groups' top nodes (L2L), instead of once per
+group (1e6 uniform: a quarter of all translations were at the groups' top
+nodes, each group repeating its neighbours'). The pairs it leaves at a top
+node start that group's walk. For each group a dual walk pairs its target
+nodes A with source nodes B:
 
 - **local expansion** (M2L) when (r_A + b_B) < theta d, d the distance of
   the two centres and r_A, b_B their radii: the Taylor series of
@@ -318,16 +324,23 @@ class Tree:
         acc = float(accuracy)
         single_rel = SINGLE_CLOSE / acc if acc >= SINGLE_MIN_ACCURACY else 0.0
         single_range = SINGLE_M2L_RANGE if acc >= SINGLE_MIN_ACCURACY else 0.0
+        up_nodes, par_up, m2l_off, m2l_src, pend_off, pend_src = _k.upper_walk(
+            self._nd, self._first, self._nchild, tnd, tfirst, tnchild, g0, g1, theta, int(DIRECT_MAX))
+        uloc = np.empty((up_nodes.size, _LOCAL_SCALE.size))
+        uhas = np.empty(up_nodes.size, np.bool_)
         old = numba.get_parallel_chunksize()
         numba.set_parallel_chunksize(1)
         try:
+            _k.upper_locals(up_nodes, par_up, m2l_off, m2l_src, self._nd, self._mm, tnd, _DIDX, _DCOEF, _DCOEF32,
+                            _DERIV, _M2L_ROWS, _UNFOLD, _LOCAL_SCALE, _RED_PTR, _COMP_ORDER, _DOWN_IDX, _DOWN_COEF,
+                            _DOWN_PTR, _PARENT, _AXIS, single_range, self._qscale, uloc, uhas)
             _k.evaluate_fmm(self._start, self._end, self._first, self._nchild, self._nd, self._mm,
                             self._x, self._y, self._z, self._q, self._r, use_radii,
                             tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0, g1,
                             theta, int(DIRECT_MAX), _DIDX, _DCOEF, _DCOEF32, _M2L_ROWS, _UNFOLD, _DERIV,
                             _LOCAL_SCALE, _RED_PTR, _COMP_ORDER, _GRAD_ROWS,
                             _DOWN_IDX, _DOWN_COEF, _DOWN_PTR, _PARENT, _AXIS, nb, single_rel, single_range,
-                            self._qscale,
+                            self._qscale, up_nodes, par_up, uloc, uhas, pend_off, pend_src,
                             bool(need_potential), ex, ey, ez, phi, nzero)
         finally:
             numba.set_parallel_chunksize(old)

@@ -550,3 +550,60 @@ def test_single_precision_translations_fall_back_over_a_wide_range_of_distances(
     for part in (slice(0, 200), slice(200, None)):
         assert _err(e[idx][part], e_ref[part]) <= 1e-3
         assert _err(p[idx][part], p_ref[part]) <= 1e-3
+
+
+def test_walks_cover_every_source_once_at_every_target_leaf():
+    # exact bookkeeping of the fast multipole method (any FMM text): at each
+    # target leaf, the source nodes taken by a local expansion of the leaf or
+    # of any node above it (the group's nodes, then the upper nodes above
+    # the groups) plus the leaf's near nodes hold every source exactly once
+    from chargesim.coulomb import _tree_kernels as _k
+
+    rng = _rng(34)
+    n = 20_000
+    pos = _clustered(rng, n)
+    t = tree.Tree(pos, _mixed(rng, n))
+    theta = tree.theta_for(1e-3)
+    up_nodes, par_up, m2l_off, m2l_src, pend_off, pend_src = _k.upper_walk(
+        t._nd, t._first, t._nchild, t._nd, t._first, t._nchild, t._g0, t._g1, theta, tree.DIRECT_MAX)
+    assert up_nodes.size > 1 and t._g0.size > 8  # both walks have work
+    # sources taken at each upper node, its own and those of the upper nodes above it
+    taken_up = []
+    for u, k in enumerate(up_nodes):
+        own = list(m2l_src[m2l_off[u]:m2l_off[u + 1]])
+        taken_up.append(own if u == 0 else taken_up[par_up[k]] + own)
+    pa = np.empty(16, np.int64)
+    pb = np.empty(16, np.int64)
+    lists = ((np.empty(16, np.int64), np.empty(16, np.int64)), (np.empty(16, np.int64), np.empty(16, np.int64)))
+    tn = np.empty(4, np.int64)
+    counts = np.empty(8, np.int64)
+    leaves = 0
+    for g in range(t._g0.size):
+        tn, counts, ntn = _k._group_nodes(t._first, t._nchild, t._g0[g], t._g1[g], tn, counts)
+        pa, pb, l0, l1, n0, n1 = _k._traverse(t._nd, t._first, t._nchild, t._nd, t._nchild, tn, ntn, pend_off,
+                                              pend_src, theta, tree.DIRECT_MAX, pa, pb, lists, counts)
+        lists = (l0, l1)
+        far = [[] for _ in range(ntn)]
+        near = [[] for _ in range(ntn)]
+        for a, k in zip(l0[0][:n0], l0[1][:n0]):
+            far[a].append(k)
+        for a, k in zip(l1[0][:n1], l1[1][:n1]):
+            near[a].append(k)
+        for a in range(ntn):
+            if t._nchild[tn[a]] != 0:
+                continue
+            nodes = list(near[a])
+            b = a
+            while b >= 0:
+                nodes += far[b]
+                top = b
+                b = counts[b]
+            pu = par_up[tn[top]]
+            if pu >= 0:
+                nodes += taken_up[pu]
+            cover = np.zeros(n + 1, np.int64)
+            np.add.at(cover, t._start[nodes], 1)
+            np.add.at(cover, t._end[nodes], -1)
+            assert np.all(np.cumsum(cover)[:n] == 1), (g, a)
+            leaves += 1
+    assert leaves == int(np.sum(t._nchild == 0))

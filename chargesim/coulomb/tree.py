@@ -117,7 +117,10 @@ CROSSOVER = 2000
 #: (leaves ~10 vs ~78) 0.10 s / err 3.1e-4 vs 0.043 s / 4.5e-5; N = 4e4
 #: (~10 vs ~78) 0.47 s / 5.2e-4 vs 0.58 s / 1.2e-4; at 1e5 and 1e6 both
 #: give the same leaves (~24-30). At equal error (1e5, leaves ~24) 16 took
-#: 3.5x, 32 1.1x the time of 64.
+#: 3.5x, 32 1.1x the time of 64. Again with the translations in single
+#: precision and the upper walk (1e6 clustered, accuracy 1e-3, 500 sampled
+#: targets): 128 / 96 / 64 took 3.90 / 3.89 / 4.40 s at errors 6.8e-4 /
+#: 7.3e-4 / 7.8e-4.
 LEAF_SIZE = 128
 #: Most targets in a group that shares one dual walk. Within a group the walk
 #: descends the target nodes, so a group can be large; 1024 keeps the walks

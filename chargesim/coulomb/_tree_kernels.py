@@ -680,9 +680,9 @@ def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef,
     in ``dm``, then one dot product over the nodes per translation term
     (see :func:`chargesim.coulomb._multipoles.m2l_table`); ``gk``, ``wpow``
     scratch. Lengths are in units of rho = sqrt(``d2min``), the distance of
-    the nearest of the nodes (:func:`_distance_range`), and charges in units of ``qscale``: then every |R| >= 1, the
-    derivatives are at most of order m!, and the moments of order n at most
-    of order (theta |R|)^n. The scratch arrays ``am``, ``dm``, ``geo``,
+    the nearest of the nodes (:func:`_distance_range`), and charges in units
+    of ``qscale``: then every |R| >= 1, the derivatives are at most of order
+    m!, and the moments of order n at most of order (theta |R|)^n. The scratch arrays ``am``, ``dm``, ``geo``,
     ``gk`` and the table ``dcoef`` may be single precision (``float32``,
     twice the lanes): the caller keeps the nodes' distances within a range
     where that neither overflows nor underflows. ``loc`` is double
@@ -770,6 +770,36 @@ def _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef,
         w *= irho
     for c in range(local_scale.size):
         loc[c] += np.float64(gk[c]) * local_scale[c] * wpow[comp_order[c]]
+
+
+@numba.njit(inline="always", fastmath=_FM, error_model="numpy")
+def _translate(nd, mm, mlist, nm, gx, gy, gz, s64, s32, didx, dcoef, dcoef32, deriv, rows, unfold, local_scale,
+               red_ptr, comp_order, qscale, range2, wpow, loc):
+    """M2L of the nodes ``mlist[:nm]`` into ``loc`` about (gx, gy, gz)
+    (:func:`_local_coefficients`), in single precision when the farthest
+    node is at most sqrt(``range2``) times farther than the nearest, else in
+    double. ``s64``, ``s32``: scratch (am, dm, geo, gk) of each precision,
+    grown here as needed; returns them."""
+    d2lo, d2hi = _distance_range(nd, mlist, nm, gx, gy, gz)
+    if d2hi <= range2 * d2lo:
+        am, dm, geo, gk = s32
+        if am.shape[1] < nm:
+            am = np.empty((am.shape[0], 2 * nm), np.float32)
+            dm = np.empty((dm.shape[0], 2 * nm), np.float32)
+            geo = np.empty((4, 2 * nm), np.float32)
+            s32 = (am, dm, geo, gk)
+        _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef32, deriv, rows, unfold,
+                            local_scale, red_ptr, comp_order, qscale, d2lo, wpow, gk, loc)
+    else:
+        am, dm, geo, gk = s64
+        if am.shape[1] < nm:
+            am = np.empty((am.shape[0], 2 * nm))
+            dm = np.empty((dm.shape[0], 2 * nm))
+            geo = np.empty((4, 2 * nm))
+            s64 = (am, dm, geo, gk)
+        _local_coefficients(nd, mm, mlist, nm, gx, gy, gz, am, dm, geo, didx, dcoef, deriv, rows, unfold,
+                            local_scale, red_ptr, comp_order, qscale, d2lo, wpow, gk, loc)
+    return s64, s32
 
 
 @numba.njit(inline="always", fastmath=_FM, error_model="numpy")
@@ -1066,9 +1096,6 @@ def upper_locals(up_nodes, par_up, m2l_off, m2l_src, snd, mm, tnd, didx, dcoef, 
     n_up = up_nodes.size
     ncl = local_scale.size
     nred = mm.shape[1]
-    nw = 0
-    for c in range(ncl):
-        nw = max(nw, comp_order[c] + 1)
     range2 = single_range * single_range
     for u in numba.prange(n_up):
         for c in range(ncl):
@@ -1078,18 +1105,12 @@ def upper_locals(up_nodes, par_up, m2l_off, m2l_src, snd, mm, tnd, didx, dcoef, 
         if cnt == 0:
             continue
         ta = up_nodes[u]
-        mlist = m2l_src[m2l_off[u]:m2l_off[u + 1]]
-        wpow = np.empty(nw)
-        d2lo, d2hi = _distance_range(snd, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2])
-        if d2hi <= range2 * d2lo:
-            _local_coefficients(snd, mm, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2],
-                                np.empty((nred, cnt), np.float32), np.empty((ncl, cnt), np.float32),
-                                np.empty((4, cnt), np.float32), didx, dcoef32, deriv, rows, unfold, local_scale,
-                                red_ptr, comp_order, qscale, d2lo, wpow, np.empty(ncl + 1, np.float32), uloc[u])
-        else:
-            _local_coefficients(snd, mm, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2], np.empty((nred, cnt)),
-                                np.empty((ncl, cnt)), np.empty((4, cnt)), didx, dcoef, deriv, rows, unfold,
-                                local_scale, red_ptr, comp_order, qscale, d2lo, wpow, np.empty(ncl + 1), uloc[u])
+        s64 = (np.empty((nred, 0)), np.empty((ncl, 0)), np.empty((4, 0)), np.empty(ncl + 1))
+        s32 = (np.empty((nred, 0), np.float32), np.empty((ncl, 0), np.float32), np.empty((4, 0), np.float32),
+               np.empty(ncl + 1, np.float32))
+        _translate(snd, mm, m2l_src[m2l_off[u]:m2l_off[u + 1]], cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2], s64, s32,
+                   didx, dcoef, dcoef32, deriv, rows, unfold, local_scale, red_ptr, comp_order, qscale, range2,
+                   np.empty(comp_order.max() + 1), uloc[u])
     dmono = np.empty(ncl)
     for u in range(1, n_up):
         p = par_up[up_nodes[u]]
@@ -1145,9 +1166,6 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
         ngrad = max(ngrad, grad_rows[r, 2] + 1)
     rel2 = single_rel * single_rel
     nred = mm.shape[1]
-    nw = 0
-    for c in range(ncl):
-        nw = max(nw, comp_order[c] + 1)
     range2 = single_range * single_range
     for blk in numba.prange(n_blocks):
         ga = (blk * ng) // n_blocks
@@ -1164,15 +1182,11 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
         srt1 = np.empty(1024, np.int64)
         o0 = np.empty(65, np.int64)
         o1 = np.empty(65, np.int64)
-        am = np.empty((nred, 256))
-        dm = np.empty((ncl, 256))
-        geo = np.empty((4, 256))
-        gk = np.empty(ncl + 1)  # one scratch slot for padded terms
-        am32 = np.empty((nred, 256), np.float32)
-        dm32 = np.empty((ncl, 256), np.float32)
-        geo32 = np.empty((4, 256), np.float32)
-        gk32 = np.empty(ncl + 1, np.float32)
-        wpow = np.empty(nw)
+        # M2L scratch (am, dm, geo, gk) of each precision; gk has one slot for padded terms
+        s64 = (np.empty((nred, 256)), np.empty((ncl, 256)), np.empty((4, 256)), np.empty(ncl + 1))
+        s32 = (np.empty((nred, 256), np.float32), np.empty((ncl, 256), np.float32), np.empty((4, 256), np.float32),
+               np.empty(ncl + 1, np.float32))
+        wpow = np.empty(comp_order.max() + 1)
         loc = np.empty((64, ncl))
         has = np.empty(64, np.bool_)
         grd = np.empty((3, ncl))
@@ -1212,24 +1226,9 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                 if cnt == 0:
                     continue
                 ta = tn[a]
-                mlist = srt0[o0[a]:o0[a + 1]]
-                d2lo, d2hi = _distance_range(snd, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2])
-                if d2hi <= range2 * d2lo:
-                    if am32.shape[1] < cnt:
-                        am32 = np.empty((nred, 2 * cnt), np.float32)
-                        dm32 = np.empty((ncl, 2 * cnt), np.float32)
-                        geo32 = np.empty((4, 2 * cnt), np.float32)
-                    _local_coefficients(snd, mm, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2], am32, dm32, geo32,
-                                        didx, dcoef32, deriv, rows, unfold, local_scale, red_ptr, comp_order,
-                                        qscale, d2lo, wpow, gk32, loc[a])
-                else:
-                    if am.shape[1] < cnt:
-                        am = np.empty((nred, 2 * cnt))
-                        dm = np.empty((ncl, 2 * cnt))
-                        geo = np.empty((4, 2 * cnt))
-                    _local_coefficients(snd, mm, mlist, cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2], am, dm, geo,
-                                        didx, dcoef, deriv, rows, unfold, local_scale, red_ptr, comp_order,
-                                        qscale, d2lo, wpow, gk, loc[a])
+                s64, s32 = _translate(snd, mm, srt0[o0[a]:o0[a + 1]], cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2], s64,
+                                      s32, didx, dcoef, dcoef32, deriv, rows, unfold, local_scale, red_ptr,
+                                      comp_order, qscale, range2, wpow, loc[a])
                 has[a] = True
             # L2L: parents come before their children in tn
             for a in range(ntn):

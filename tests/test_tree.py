@@ -236,6 +236,34 @@ def test_finite_radii_against_direct():
     assert _err(e, e_ref) <= 1e-3 and _err(p, p_ref) <= 1e-3
 
 
+def test_small_radii_take_the_point_kernel_yet_overlapping_pairs_stay_spheres():
+    # reference: direct sum with the uniformly-charged-sphere kernel (contract in
+    # DEVELOPERS.md). Dust-like spheres, radii 1/30 of their spacing: the near
+    # sums may use the point kernel, which equals the sphere kernel outside
+    # a = max(R_i, R_j). Twenty pairs overlap, 0.6 a apart (inside, the field
+    # of a uniformly charged sphere is q r / a^3, 0.6^3 = 0.22 of the point
+    # charge's q / r^2; and farther apart than single precision's close pairs),
+    # and probe points sit inside spheres: those must keep the sphere kernel.
+    rng = _rng(31)
+    n = 4000
+    r = 2e-3
+    pos = rng.random((n, 3))
+    q = _mixed(rng, n)
+    radii = np.full(n, r)
+    pair = np.arange(0, 400, 20)
+    d = rng.normal(size=(pair.size, 3))
+    pos[pair + 1] = pos[pair] + 0.6 * r * d / np.linalg.norm(d, axis=1)[:, None]
+    e_ref, p_ref = direct.evaluate(pos, q, None, radii)
+    e, p = tree.evaluate(pos, q, None, radii, accuracy=1e-3)
+    assert _err(e, e_ref) <= 1e-3 and _err(p, p_ref) <= 1e-3
+    both = np.concatenate([pair, pair + 1])
+    assert _err(e[both], e_ref[both]) <= 1e-3 and _err(p[both], p_ref[both]) <= 1e-3
+    tgt = np.vstack([pos[pair] + 0.6 * r * np.array([0.6, 0.0, 0.8]), rng.random((300, 3))])
+    e_ref, p_ref = direct.evaluate(pos, q, tgt, radii)
+    e, p = tree.evaluate(pos, q, tgt, radii, accuracy=1e-3)
+    assert _err(e[:pair.size], e_ref[:pair.size]) <= 1e-3 and _err(p, p_ref) <= 1e-3
+
+
 def test_coincident_points_raise():
     # contract (DEVELOPERS.md): a target exactly on a point source is an error naming both
     rng = _rng(8)

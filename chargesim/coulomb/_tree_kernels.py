@@ -34,6 +34,12 @@ _MORTON_MAX = (1 << MORTON_BITS) - 1
 _FM = {"nsz", "arcp", "contract", "afn", "reassoc"}
 #: Pairs summed in single precision before their sum joins the double one.
 _RUN32 = 128
+#: Single-precision near sums of spheres take the point kernel (1.2x the
+#: pair rate) when a target expects fewer than this many of its near
+#: sources within the largest radius, estimated as count x (R / extent)^3.
+#: Outside a = max(R_i, R_j) the two kernels are equal; a target with a pair
+#: closer than its largest a is summed again with the spheres in double.
+_RADII_AS_POINTS = 0.05
 
 
 @numba.njit(inline="always")
@@ -1251,6 +1257,8 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                 ifar = 1.0
                 nb_ready = False
                 tot = 0
+                as_points = False
+                rsrc = 0.0
                 if single:
                     # straight from the sources into single precision:
                     # coordinates relative to the leaf's centre over a bound
@@ -1283,6 +1291,13 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                             w += 1
                     pscale = qscale * ifar
                     fscale = pscale * ifar
+                    if use_radii:
+                        rsrc = 0.0
+                        for u in range(o1[a], o1[a + 1]):
+                            rsrc = max(rsrc, snd[srt1[u], 4])
+                        ra = max(rsrc, tnd[ta, 4]) * ifar
+                        as_points = tot * ra * ra * ra < _RADII_AS_POINTS
+                        rsrc *= ifar
                 else:
                     nb, tot = _gather_near(srt1, o1[a], o1[a + 1], sstart, send, sx, sy, sz, sq, sr, use_radii, nb)
                     nb_ready = True
@@ -1327,7 +1342,13 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                         uz = (zi - caz) * ifar
                         # the floor counts a zero distance at the very centre
                         close2 = np.float32(max(rel2 * (ux * ux + uy * uy + uz * uz), 1e-30))
-                        if use_radii:
+                        if use_radii and as_points:
+                            # a pair closer than max(R_i, R_j) counts as close
+                            ai = max(np.float32(tr[i] * ifar), np.float32(rsrc))
+                            close2 = max(close2, ai * ai)
+                            gx, gy, gz, gp, c = _near_points32(np.float32(ux), np.float32(uy), np.float32(uz),
+                                                               fbx, fby, fbz, fbq, tot, close2)
+                        elif use_radii:
                             gx, gy, gz, gp, c = _near_spheres32(np.float32(ux), np.float32(uy), np.float32(uz),
                                                                 np.float32(tr[i] * ifar), fbx, fby, fbz, fbq, fbr,
                                                                 tot, close2, need_pot)

@@ -41,7 +41,10 @@ target leaf's centre and charges, both scaled to order 1, summed in single
 precision over runs of 128 pairs and in double precision over the runs.
 Each pair then carries a relative rounding of ~1e-7; a target with a pair
 too close for that (``SINGLE_CLOSE``), or with an unexpected zero distance,
-is summed again in double precision. Finite radii keep double precision.
+is summed again in double precision. Spheres are summed in single precision
+too, by the sphere kernel, or by the point kernel when their radii are small
+against their spacing (a pair closer than max(R_i, R_j) then counts as
+close, and its target is summed again with the spheres in double).
 From the same accuracy up the translations (M2L) run in single precision
 too, in units of the distance of the target node's nearest source node and
 of the largest charge (``SINGLE_M2L_RANGE``): 1.4x the translation rate

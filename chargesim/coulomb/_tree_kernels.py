@@ -859,16 +859,6 @@ def _bucket(tag, val, n, nbuckets, off, out):
 
 
 @numba.njit(inline="always")
-def _push(tag, val, n, t, v):
-    if n == tag.size:
-        tag = _grow(tag, 2 * n)
-        val = _grow(val, 2 * n)
-    tag[n] = t
-    val[n] = v
-    return tag, val, n + 1
-
-
-@numba.njit(inline="always")
 def _accept(snd, tnd, ta, k, th2, direct_max):
     """Whether target node ``ta`` takes source node ``k`` by a local expansion:
     (r_A + b_B) < theta d (``th2`` = theta^2), no target sphere can overlap a
@@ -922,22 +912,47 @@ def _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, pend_off, pend_src, t
                 pb[sp] = pend_src[u]
                 sp += 1
     th2 = theta * theta
+    # the walk runs in _walk_pairs, which never replaces an array: here a
+    # loop that may (growing one) took 6x the time, numba counting the
+    # references of the arrays it carries at every pair
     while sp > 0:
+        sp, n0, n1 = _walk_pairs(snd, sfirst, snchild, tnd, tnchild, tn, ntn, th2, direct_max, pa, pb, sp, tag0,
+                                 val0, n0, tag1, val1, n1, counts)
+        if sp + 8 > pa.size:
+            pa = _grow(pa, 2 * pa.size + 8)
+            pb = _grow(pb, 2 * pb.size + 8)
+        if n0 == tag0.size:
+            tag0 = _grow(tag0, 2 * n0)
+            val0 = _grow(val0, 2 * n0)
+        if n1 == tag1.size:
+            tag1 = _grow(tag1, 2 * n1)
+            val1 = _grow(val1, 2 * n1)
+    return pa, pb, (tag0, val0), (tag1, val1), n0, n1
+
+
+@numba.njit(cache=True)
+def _walk_pairs(snd, sfirst, snchild, tnd, tnchild, tn, ntn, th2, direct_max, pa, pb, sp, tag0, val0, n0, tag1, val1,
+                n1, counts):
+    """:func:`_traverse`'s walk from the stack ``pa[:sp]``, ``pb[:sp]`` until
+    it is empty or an array could overflow (a pair opened, or one more list
+    entry); returns (sp, n0, n1)."""
+    while sp > 0 and sp + 7 <= pa.size and n0 < tag0.size and n1 < tag1.size:
         sp -= 1
         a = pa[sp]
         k = pb[sp]
         ta = tn[a]
         if _accept(snd, tnd, ta, k, th2, direct_max):
-            tag0, val0, n0 = _push(tag0, val0, n0, a, k)
+            tag0[n0] = a
+            val0[n0] = k
+            n0 += 1
             continue
         a_leaf = tnchild[ta] == 0
         b_end = snd[k, 5] <= direct_max or snchild[k] == 0
         if a_leaf and b_end:
-            tag1, val1, n1 = _push(tag1, val1, n1, a, k)
+            tag1[n1] = a
+            val1[n1] = k
+            n1 += 1
             continue
-        if sp + 8 > pa.size:
-            pa = _grow(pa, 2 * pa.size + 8)
-            pb = _grow(pb, 2 * pb.size + 8)
         if not a_leaf and (b_end or tnd[ta, 3] >= snd[k, 3]):
             # open A: its children are consecutive in tn from counts[ntn + a]
             for c in range(tnchild[ta]):
@@ -950,7 +965,7 @@ def _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, pend_off, pend_src, t
                 pa[sp] = a
                 pb[sp] = c0 + c
                 sp += 1
-    return pa, pb, (tag0, val0), (tag1, val1), n0, n1
+    return sp, n0, n1
 
 
 @numba.njit(cache=True)
@@ -1058,19 +1073,47 @@ def upper_walk(snd, sfirst, snchild, tnd, tfirst, tnchild, g0s, g1s, theta, dire
     pa[0] = 0
     pb[0] = 0
     sp = 1
+    # as in _traverse: the walk in a function that never replaces an array
     while sp > 0:
+        sp, n0, n1 = _upper_pairs(snd, sfirst, snchild, tnd, tfirst, tnchild, is_top, up_index, th2, direct_max, pa,
+                                  pb, sp, tag0, val0, n0, tag1, val1, n1)
+        if sp + 8 > pa.size:
+            pa = _grow(pa, 2 * pa.size + 8)
+            pb = _grow(pb, 2 * pb.size + 8)
+        if n0 == tag0.size:
+            tag0 = _grow(tag0, 2 * n0)
+            val0 = _grow(val0, 2 * n0)
+        if n1 == tag1.size:
+            tag1 = _grow(tag1, 2 * n1)
+            val1 = _grow(val1, 2 * n1)
+    m2l_off = np.empty(n_up + 1, np.int64)
+    m2l_src = np.empty(n0, np.int64)
+    _bucket(tag0, val0, n0, n_up, m2l_off, m2l_src)
+    pend_off = np.empty(nt + 1, np.int64)
+    pend_src = np.empty(n1, np.int64)
+    _bucket(tag1, val1, n1, nt, pend_off, pend_src)
+    return up_nodes[:n_up].copy(), par_up, m2l_off, m2l_src, pend_off, pend_src
+
+
+@numba.njit(cache=True)
+def _upper_pairs(snd, sfirst, snchild, tnd, tfirst, tnchild, is_top, up_index, th2, direct_max, pa, pb, sp, tag0, val0,
+                 n0, tag1, val1, n1):
+    """:func:`upper_walk`'s walk from the stack until it is empty or an array
+    could overflow; returns (sp, n0, n1)."""
+    while sp > 0 and sp + 7 <= pa.size and n0 < tag0.size and n1 < tag1.size:
         sp -= 1
         ta = pa[sp]
         k = pb[sp]
         if is_top[ta]:
-            tag1, val1, n1 = _push(tag1, val1, n1, ta, k)
+            tag1[n1] = ta
+            val1[n1] = k
+            n1 += 1
             continue
         if _accept(snd, tnd, ta, k, th2, direct_max):
-            tag0, val0, n0 = _push(tag0, val0, n0, up_index[ta], k)
+            tag0[n0] = up_index[ta]
+            val0[n0] = k
+            n0 += 1
             continue
-        if sp + 8 > pa.size:
-            pa = _grow(pa, 2 * pa.size + 8)
-            pb = _grow(pb, 2 * pb.size + 8)
         if snd[k, 5] <= direct_max or snchild[k] == 0 or tnd[ta, 3] >= snd[k, 3]:
             for c in range(tnchild[ta] - 1, -1, -1):
                 pa[sp] = tfirst[ta] + c
@@ -1081,13 +1124,7 @@ def upper_walk(snd, sfirst, snchild, tnd, tfirst, tnchild, g0s, g1s, theta, dire
                 pa[sp] = ta
                 pb[sp] = sfirst[k] + c
                 sp += 1
-    m2l_off = np.empty(n_up + 1, np.int64)
-    m2l_src = np.empty(n0, np.int64)
-    _bucket(tag0, val0, n0, n_up, m2l_off, m2l_src)
-    pend_off = np.empty(nt + 1, np.int64)
-    pend_src = np.empty(n1, np.int64)
-    _bucket(tag1, val1, n1, nt, pend_off, pend_src)
-    return up_nodes[:n_up].copy(), par_up, m2l_off, m2l_src, pend_off, pend_src
+    return sp, n0, n1
 
 
 @numba.njit(parallel=True, fastmath=_FM, cache=True, error_model="numpy")
@@ -1199,6 +1236,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
         dmono = np.empty(ncl)
         tl = np.empty((ncl, 256))
         lv = np.empty((4, 256))
+        dl = np.empty(256, np.int64)
         for g in range(ga, gb):
             tn, counts, ntn = _group_nodes(tfirst, tnchild, g0s[g], g1s[g], tn, counts)
             pa, pb, l0, l1, n0, n1 = _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, pend_off, pend_src,
@@ -1322,10 +1360,13 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                         tl = np.empty((ncl, 2 * nt))
                         lv = np.empty((4, 2 * nt))
                     _evaluate_local(loc[a], grd, ngrad, tx, ty, tz, i0, nt, cax, cay, caz, parent, axis, tl, lv)
+                # targets whose near sum runs in double precision, summed after
+                # the others: this loop then never replaces or slices an array
+                # (each costs numba's reference counting, per target)
+                if dl.size < tend[ta] - tstart[ta]:
+                    dl = np.empty(2 * (tend[ta] - tstart[ta]), np.int64)
+                ndl = 0
                 for i in range(tstart[ta], tend[ta]):
-                    xi = tx[i]
-                    yi = ty[i]
-                    zi = tz[i]
                     ax = 0.0
                     ay = 0.0
                     az = 0.0
@@ -1335,11 +1376,10 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                         ax = lv[1, i - i0]
                         ay = lv[2, i - i0]
                         az = lv[3, i - i0]
-                    dbl = not single
                     if single:
-                        ux = (xi - cax) * ifar
-                        uy = (yi - cay) * ifar
-                        uz = (zi - caz) * ifar
+                        ux = (tx[i] - cax) * ifar
+                        uy = (ty[i] - cay) * ifar
+                        uz = (tz[i] - caz) * ifar
                         # the floor counts a zero distance at the very centre
                         close2 = np.float32(max(rel2 * (ux * ux + uy * uy + uz * uz), 1e-30))
                         if use_radii and as_points:
@@ -1357,27 +1397,34 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                                                                fbx, fby, fbz, fbq, tot, close2)
                         if c == expect:
                             # the target itself (self_targets) added nothing
-                            fx = gx * fscale
-                            fy = gy * fscale
-                            fz = gz * fscale
-                            pp = gp * pscale
+                            ex[i] = ax + gx * fscale
+                            ey[i] = ay + gy * fscale
+                            ez[i] = az + gz * fscale
+                            phi[i] = p + gp * pscale
                             # as the double sums report it: the self pair of
                             # points counted, of spheres taken out
-                            c = 0 if use_radii else expect
-                        else:
-                            dbl = True
-                    if dbl and not nb_ready:
-                        nb, tot = _gather_near(srt1, o1[a], o1[a + 1], sstart, send, sx, sy, sz, sq, sr, use_radii,
-                                               nb)
-                        nb_ready = True
-                    bx = nb[0]
-                    by = nb[1]
-                    bz = nb[2]
-                    bq = nb[3]
-                    br = nb[4]
-                    if dbl and use_radii:
+                            nzero[i] = 0 if use_radii else expect
+                            continue
+                    ex[i] = ax
+                    ey[i] = ay
+                    ez[i] = az
+                    phi[i] = p
+                    dl[ndl] = i
+                    ndl += 1
+                if ndl == 0:
+                    continue
+                if not nb_ready:
+                    nb, tot = _gather_near(srt1, o1[a], o1[a + 1], sstart, send, sx, sy, sz, sq, sr, use_radii, nb)
+                bx = nb[0]
+                by = nb[1]
+                bz = nb[2]
+                bq = nb[3]
+                br = nb[4]
+                for u in range(ndl):
+                    i = dl[u]
+                    if use_radii:
                         ri = tr[i]
-                        fx, fy, fz, pp, c = _near_spheres(xi, yi, zi, ri, bx, by, bz, bq, br, 0, tot)
+                        fx, fy, fz, pp, c = _near_spheres(tx[i], ty[i], tz[i], ri, bx, by, bz, bq, br, 0, tot)
                         if self_targets:
                             # the self pair is in the sum (i's own leaf is near):
                             # at r = 0 it adds exactly zero field, and the
@@ -1389,12 +1436,12 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                                 pp -= 1.5 * sq[i] / ri
                             else:
                                 c -= 1
-                    elif dbl:
-                        fx, fy, fz, pp, c = _near_points(xi, yi, zi, bx, by, bz, bq, 0, tot)
-                    ex[i] = ax + fx
-                    ey[i] = ay + fy
-                    ez[i] = az + fz
-                    phi[i] = p + pp
+                    else:
+                        fx, fy, fz, pp, c = _near_points(tx[i], ty[i], tz[i], bx, by, bz, bq, 0, tot)
+                    ex[i] += fx
+                    ey[i] += fy
+                    ez[i] += fz
+                    phi[i] += pp
                     nzero[i] = c
 
 

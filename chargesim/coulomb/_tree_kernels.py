@@ -809,29 +809,34 @@ def _translate(nd, mm, mlist, nm, gx, gy, gz, s64, s32, didx, dcoef, dcoef32, de
 
 
 @numba.njit(inline="always", fastmath=_FM, error_model="numpy")
-def _evaluate_local(lc, grd, ngrad, tx, ty, tz, i0, nt, cx, cy, cz, parent, axis, tl, lv):
+def _evaluate_local(lc, grd, ngrad, tx, ty, tz, i0, nt, cx, cy, cz, parent, axis, need_pot, tl, lv):
     """L2P for the targets i0 .. i0 + nt - 1 of a leaf: the potential sum_k
     lc[k] t^k in lv[0] and the field -sum_k grd[:, k] t^k in lv[1:4], t the
     target about (cx, cy, cz). The monomials are tabled over the targets
     (``tl``, component by target) so that every loop runs across targets
-    and vectorises (per target, the chained products did not)."""
+    and vectorises (per target, the chained products did not).
+    ``need_pot`` False: lv[0] holds the constant term only, and the
+    monomials of the top order (which only the potential takes) are left
+    out: 1.3x the rate."""
     for j in range(nt):
         tl[0, j] = 1.0
         lv[0, j] = lc[0]
         lv[1, j] = -grd[0, 0]
         lv[2, j] = -grd[1, 0]
         lv[3, j] = -grd[2, 0]
-    for c in range(1, lc.size):
+    nmono = lc.size if need_pot else ngrad
+    for c in range(1, nmono):
         pc = parent[c]
         ac = axis[c]
         ctr = cx if ac == 0 else (cy if ac == 1 else cz)
         coord = tx if ac == 0 else (ty if ac == 1 else tz)
         for j in range(nt):
             tl[c, j] = tl[pc, j] * (coord[i0 + j] - ctr)
-    for c in range(1, lc.size):
-        lk = lc[c]
-        for j in range(nt):
-            lv[0, j] += lk * tl[c, j]
+    if need_pot:
+        for c in range(1, lc.size):
+            lk = lc[c]
+            for j in range(nt):
+                lv[0, j] += lk * tl[c, j]
     for c in range(1, ngrad):
         g0 = grd[0, c]
         g1 = grd[1, c]
@@ -1198,8 +1203,9 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
     source's is at most |x| + r); a target with a pair closer than
     ``single_rel`` x |x|, or an unexpected zero distance, is summed again
     in double precision. 0: double precision throughout. ``need_pot``
-    False: the single-precision near sums of spheres leave out the
-    potential (``phi`` is then incomplete, and not for use).
+    False: the single-precision near sums of spheres and the local
+    expansions (L2P) leave out the potential (``phi`` is then incomplete,
+    and not for use).
     """
     ng = g0s.size
     ncl = local_scale.size
@@ -1359,7 +1365,8 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                     if tl.shape[1] < nt:
                         tl = np.empty((ncl, 2 * nt))
                         lv = np.empty((4, 2 * nt))
-                    _evaluate_local(loc[a], grd, ngrad, tx, ty, tz, i0, nt, cax, cay, caz, parent, axis, tl, lv)
+                    _evaluate_local(loc[a], grd, ngrad, tx, ty, tz, i0, nt, cax, cay, caz, parent, axis, need_pot, tl,
+                                    lv)
                 # targets whose near sum runs in double precision, summed after
                 # the others: this loop then never replaces or slices an array
                 # (each costs numba's reference counting, per target)

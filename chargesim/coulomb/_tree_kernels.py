@@ -882,6 +882,22 @@ def _accept(snd, tnd, ta, k, th2, direct_max):
 
 
 @numba.njit(cache=True)
+def _make_room(pa, pb, sp, tag0, val0, n0, tag1, val1, n1):
+    """Grow a walk's pair stack (room for 8 more) and its full lists (the
+    walks stop for room rather than grow them: see :func:`_traverse`)."""
+    if sp + 8 > pa.size:
+        pa = _grow(pa, 2 * pa.size + 8)
+        pb = _grow(pb, 2 * pb.size + 8)
+    if n0 == tag0.size:
+        tag0 = _grow(tag0, 2 * n0)
+        val0 = _grow(val0, 2 * n0)
+    if n1 == tag1.size:
+        tag1 = _grow(tag1, 2 * n1)
+        val1 = _grow(val1, 2 * n1)
+    return pa, pb, tag0, val0, tag1, val1
+
+
+@numba.njit(cache=True)
 def _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, pend_off, pend_src, theta, direct_max, pa, pb, lists,
               counts):
     """Dual walk of one target group's nodes ``tn[:ntn]`` against the source tree.
@@ -923,15 +939,7 @@ def _traverse(snd, sfirst, snchild, tnd, tnchild, tn, ntn, pend_off, pend_src, t
     while sp > 0:
         sp, n0, n1 = _walk_pairs(snd, sfirst, snchild, tnd, tnchild, tn, ntn, th2, direct_max, pa, pb, sp, tag0,
                                  val0, n0, tag1, val1, n1, counts)
-        if sp + 8 > pa.size:
-            pa = _grow(pa, 2 * pa.size + 8)
-            pb = _grow(pb, 2 * pb.size + 8)
-        if n0 == tag0.size:
-            tag0 = _grow(tag0, 2 * n0)
-            val0 = _grow(val0, 2 * n0)
-        if n1 == tag1.size:
-            tag1 = _grow(tag1, 2 * n1)
-            val1 = _grow(val1, 2 * n1)
+        pa, pb, tag0, val0, tag1, val1 = _make_room(pa, pb, sp, tag0, val0, n0, tag1, val1, n1)
     return pa, pb, (tag0, val0), (tag1, val1), n0, n1
 
 
@@ -1082,15 +1090,7 @@ def upper_walk(snd, sfirst, snchild, tnd, tfirst, tnchild, g0s, g1s, theta, dire
     while sp > 0:
         sp, n0, n1 = _upper_pairs(snd, sfirst, snchild, tnd, tfirst, tnchild, is_top, up_index, th2, direct_max, pa,
                                   pb, sp, tag0, val0, n0, tag1, val1, n1)
-        if sp + 8 > pa.size:
-            pa = _grow(pa, 2 * pa.size + 8)
-            pb = _grow(pb, 2 * pb.size + 8)
-        if n0 == tag0.size:
-            tag0 = _grow(tag0, 2 * n0)
-            val0 = _grow(val0, 2 * n0)
-        if n1 == tag1.size:
-            tag1 = _grow(tag1, 2 * n1)
-            val1 = _grow(val1, 2 * n1)
+        pa, pb, tag0, val0, tag1, val1 = _make_room(pa, pb, sp, tag0, val0, n0, tag1, val1, n1)
     m2l_off = np.empty(n_up + 1, np.int64)
     m2l_src = np.empty(n0, np.int64)
     _bucket(tag0, val0, n0, n_up, m2l_off, m2l_src)

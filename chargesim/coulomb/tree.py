@@ -109,8 +109,9 @@ OPTIONS = {"accuracy": 1e-3}
 #: accuracy 1e-3, uniform mixed-sign charges; measured by
 #: ``benchmarks/bench_tree.py --crossover-only``: direct/tree time 0.50 at
 #: N = 1000, 0.89 at 1500, 1.40 at 2000, 2.13 at 3000, 4.2 at 1e4 (single-
-#: precision near sums; before them 1.18 at 2000 and 1.73 at 3000). Put at
-#: 2000, the first size measured where the tree wins clearly.
+#: precision near sums; before them 1.18 at 2000 and 1.73 at 3000); again
+#: with the cheaper walks: 0.44 at 1000, 1.20 at 1500, 2.41 at 2000, 7.5 at
+#: 1e4. Put at 2000, the first size measured where the tree wins clearly.
 CROSSOVER = 2000
 
 #: Most particles in a leaf of the source tree. A uniform cloud's leaves then

@@ -543,13 +543,21 @@ def _near_points32(xi, yi, zi, sx, sy, sz, sq, n, close2):
     az = 0.0
     p = 0.0
     c = 0
-    for j0 in range(0, n, _RUN32):
+    # unsigned indices in while loops: the compiler then drops the
+    # negative-index wrap of every load (2.40 against 2.89 cycles a pair
+    # in isolation, one or two threads; 1.02-1.04x in the whole evaluation
+    # at 1e6). Signed ranges kept the wrap.
+    un = np.uint64(n)
+    j0 = np.uint64(0)
+    while j0 < un:
+        j1 = min(j0 + np.uint64(_RUN32), un)
         bx = zero
         by = zero
         bz = zero
         bp = zero
         bc = zero
-        for j in range(j0, min(j0 + _RUN32, n)):
+        j = j0
+        while j < j1:
             dx = xi - sx[j]
             dy = yi - sy[j]
             dz = zi - sz[j]
@@ -564,11 +572,13 @@ def _near_points32(xi, yi, zi, sx, sy, sz, sq, n, close2):
             bz += s3 * dz
             bp += s
             bc += one if r2 < close2 else zero
+            j += np.uint64(1)
         ax += np.float64(bx)
         ay += np.float64(by)
         az += np.float64(bz)
         p += np.float64(bp)
         c += int(bc)
+        j0 = j1
     return ax, ay, az, p, c
 
 

@@ -514,16 +514,33 @@ def test_local_shift_is_exact():
     # a local expansion is a polynomial: shifting it to a new centre (L2L,
     # binomial theorem) must give the same values (exact algebra)
     from chargesim.coulomb import _multipoles as mp
+    from chargesim.coulomb import _tree_kernels as tk
 
     rng = _rng(31)
     loc = rng.normal(size=mp.n_components(mp.ORDER))
     delta = np.array([0.3, -0.2, 0.15])
-    dmono = _monos(delta[None, :], mp.ORDER)[0]
     shifted = np.zeros_like(loc)
-    for (m, k, mk), c in zip(tree._SHIFT_IDX, tree._SHIFT_COEF):
-        shifted[k] += c * loc[m] * dmono[mk]
+    tk._shift(shifted, loc, delta[0], delta[1], delta[2], tree._EXPO, tree._BINOM, False, np.empty((3, loc.size)))
     t = rng.uniform(-0.5, 0.5, (10, 3))
     np.testing.assert_allclose(_monos(t, mp.ORDER) @ shifted, _monos(t + delta, mp.ORDER) @ loc, rtol=1e-12)
+
+
+def test_moment_shift_is_exact():
+    # raw moments A_m = sum_j q_j (x_j - c)^m about a child's centre c,
+    # shifted to the parent's centre P (M2M, binomial theorem with
+    # d = c - P), must equal the moments taken about P directly (exact algebra)
+    from chargesim.coulomb import _multipoles as mp
+    from chargesim.coulomb import _tree_kernels as tk
+
+    rng = _rng(33)
+    x = rng.uniform(-1, 1, (40, 3))
+    q = rng.normal(size=40)
+    c = np.array([0.1, -0.3, 0.2])
+    big_p = np.array([-0.4, 0.25, 0.6])
+    child = q @ _monos(x - c, mp.ORDER)
+    out = np.full_like(child, 0.5)  # the shift adds to what is there
+    tk._shift(out, child, *(c - big_p), tree._EXPO, tree._BINOM, True, np.empty((3, child.size)))
+    np.testing.assert_allclose(out - 0.5, q @ _monos(x - big_p, mp.ORDER), rtol=1e-12, atol=1e-12)
 
 
 def test_local_expansion_equals_the_truncated_legendre_series():

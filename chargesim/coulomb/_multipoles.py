@@ -83,18 +83,10 @@ def exponent_table(p=ORDER):
     return idx
 
 
-def shift_table(p=ORDER):
-    """Raw-moment shift A'_m = sum_{k <= m} C(m, k) A_k d^(m-k), orders <= p: rows (m, k, m - k, C(m, k))."""
-    rows = []
-    comps = _components(p)
-    for m in comps:
-        for k in comps:
-            if all(k[a] <= m[a] for a in range(3)):
-                d = tuple(m[a] - k[a] for a in range(3))
-                coef = math.comb(m[0], k[0]) * math.comb(m[1], k[1]) * math.comb(m[2], k[2])
-                rows.append((_INDEX[m], _INDEX[k], _INDEX[d], coef))
-    t = np.array(rows, dtype=np.int64)
-    return t[:, :3].copy(), t[:, 3].astype(np.float64)
+def binomial_table(p=ORDER):
+    """C[a, b] = binomial coefficient (a choose b) for 0 <= b <= a <= p (0 above a), float64: the
+    one-axis factors of the moment and local-expansion shifts (M2M, L2L)."""
+    return np.array([[math.comb(a, b) for b in range(p + 1)] for a in range(p + 1)], dtype=np.float64)
 
 
 def derivative_table(p=ORDER):

@@ -359,43 +359,82 @@ def _levels(first, nchild):
 
 
 @numba.njit(inline="always")
-def _shift_rows(out, src, dm, idx, coef, ptr, col_in):
-    """out[c] += sum over the table rows r of c (``ptr[c]:ptr[c + 1]``: the
-    table is grouped by its output component) of coef[r] src[idx[r, col_in]]
-    dm[idx[r, 2]]: each sum in a register, one store per component (a store
-    per row chained each row on the one before: 2.5x the time)."""
-    for c in range(ptr.size - 1):
-        acc = 0.0
-        for r in range(ptr[c], ptr[c + 1]):
-            acc += coef[r] * src[idx[r, col_in]] * dm[idx[r, 2]]
-        out[c] += acc
+def _at(expo, axis, a, b, c, i):
+    """Component of the monomial (a, b, c) with its exponent along ``axis`` set to i."""
+    if axis == 0:
+        return expo[i, b, c]
+    if axis == 1:
+        return expo[a, i, c]
+    return expo[a, b, i]
+
+
+@numba.njit(inline="always")
+def _axis_shift(dst, src, axis, d, expo, binom, pw, up):
+    """One axis of a shift of a polynomial's coefficients by d along ``axis``:
+    up (moments, M2M): dst_m = sum_{i <= m_axis} C(m_axis, i) d^(m_axis - i)
+    src_(m with i); down (local coefficients, L2L): dst_k = sum_{i >= k_axis}
+    C(i, k_axis) d^(i - k_axis) src_(k with i), total order <= p."""
+    p = expo.shape[0] - 1
+    pw[0] = 1.0
+    for e in range(1, p + 1):
+        pw[e] = pw[e - 1] * d
+    for a in range(p + 1):
+        for b in range(p + 1 - a):
+            for c in range(p + 1 - a - b):
+                w = a if axis == 0 else (b if axis == 1 else c)
+                acc = 0.0
+                if up:
+                    for i in range(w + 1):
+                        acc += binom[w, i] * pw[w - i] * src[_at(expo, axis, a, b, c, i)]
+                else:
+                    for i in range(w, p - (a + b + c - w) + 1):
+                        acc += binom[i, w] * pw[i - w] * src[_at(expo, axis, a, b, c, i)]
+                dst[expo[a, b, c]] = acc
+
+
+@numba.njit(inline="always")
+def _shift(out, src, dx, dy, dz, expo, binom, up, scratch):
+    """out += ``src`` shifted by (dx, dy, dz): raw moments (``up``, M2M: A'_m =
+    sum_{k <= m} C(m, k) A_k d^(m - k)) or local coefficients (L2L: L'_k =
+    sum_{m >= k} C(m, k) L_m d^(m - k)), C(m, k) = prod_i C(m_i, k_i). The
+    binomial theorem factors by axis, so the shift runs as three
+    one-axis shifts (990 terms at order 7 instead of 1716; 2x the M2M
+    rate, 1.5x the L2L rate, measured). ``scratch``: (3, >= n components)."""
+    t1 = scratch[0]
+    t2 = scratch[1]
+    pw = scratch[2]
+    _axis_shift(t1, src, 0, dx, expo, binom, pw, up)
+    _axis_shift(t2, t1, 1, dy, expo, binom, pw, up)
+    _axis_shift(t1, t2, 2, dz, expo, binom, pw, up)
+    for c in range(out.size):
+        out[c] += t1[c]
 
 
 @numba.njit(parallel=True, cache=True)
-def _shift_up(nodes, first, nchild, nd, raw, parent, axis, shift_idx, shift_coef, shift_ptr):
+def _shift_up(nodes, first, nchild, nd, raw, expo, binom):
     ncomp = raw.shape[1]
     for u in numba.prange(nodes.size):
         k = nodes[u]
-        dm = np.empty(ncomp)
+        scratch = np.empty((3, ncomp))
         for c in range(ncomp):
             raw[k, c] = 0.0
         for ch in range(first[k], first[k] + nchild[k]):
-            _monomials(nd[ch, 0] - nd[k, 0], nd[ch, 1] - nd[k, 1], nd[ch, 2] - nd[k, 2], 1.0, parent, axis, dm)
-            _shift_rows(raw[k], raw[ch], dm, shift_idx, shift_coef, shift_ptr, 1)
+            _shift(raw[k], raw[ch], nd[ch, 0] - nd[k, 0], nd[ch, 1] - nd[k, 1], nd[ch, 2] - nd[k, 2], expo, binom,
+                   True, scratch)
 
 
-def upward_moments(first, nchild, nd, raw, parent, axis, shift_idx, shift_coef, shift_ptr):
+def upward_moments(first, nchild, nd, raw, expo, binom):
     """Raw moments of inner nodes from their children's (M2M), bottom up.
 
     Level by level from the deepest, the nodes of a level in parallel (each
     writes its own row; 0.31 s serial at 1e6 uniform). The shift is the
-    binomial theorem: A'_m = sum_{k <= m} C(m, k) A_k d^(m - k), d the
-    child's centre minus the parent's. Each node's sum runs over its
-    children in order: results do not depend on the thread count.
+    binomial theorem (:func:`_shift`), d the child's centre minus the
+    parent's. Each node's sum runs over its children in order: results do
+    not depend on the thread count.
     """
     nodes, off = _levels(first, nchild)
     for d in range(off.size - 2, -1, -1):
-        _shift_up(nodes[off[d]:off[d + 1]], first, nchild, nd, raw, parent, axis, shift_idx, shift_coef, shift_ptr)
+        _shift_up(nodes[off[d]:off[d + 1]], first, nchild, nd, raw, expo, binom)
 
 
 @numba.njit(parallel=True, cache=True)
@@ -1146,8 +1185,7 @@ def _upper_pairs(snd, sfirst, snchild, tnd, tfirst, tnchild, is_top, up_index, t
 
 @numba.njit(parallel=True, fastmath=_FM, cache=True, error_model="numpy")
 def upper_locals(up_nodes, par_up, m2l_off, m2l_src, snd, mm, tnd, didx, dcoef, dcoef32, deriv, rows, unfold,
-                 local_scale, red_ptr, comp_order, down_idx, down_coef, down_ptr, parent, axis, single_range, qscale,
-                 uloc, uhas):
+                 local_scale, red_ptr, comp_order, expo, binom, single_range, qscale, uloc, uhas):
     """Local expansions of the upper nodes (:func:`upper_walk`): each one's
     own translations (M2L, in parallel, single precision as in
     :func:`evaluate_fmm`), then each parent's shifted to its children (L2L),
@@ -1171,30 +1209,28 @@ def upper_locals(up_nodes, par_up, m2l_off, m2l_src, snd, mm, tnd, didx, dcoef, 
         _translate(snd, mm, m2l_src[m2l_off[u]:m2l_off[u + 1]], cnt, tnd[ta, 0], tnd[ta, 1], tnd[ta, 2], s64, s32,
                    didx, dcoef, dcoef32, deriv, rows, unfold, local_scale, red_ptr, comp_order, qscale, range2,
                    np.empty(comp_order.max() + 1), uloc[u])
-    dmono = np.empty(ncl)
+    scratch = np.empty((3, ncl))
     for u in range(1, n_up):
         p = par_up[up_nodes[u]]
         if not uhas[p]:
             continue
-        _shift_local(uloc[u], uloc[p], tnd, up_nodes[u], up_nodes[p], parent, axis, down_idx, down_coef, down_ptr,
-                     dmono)
+        _shift_local(uloc[u], uloc[p], tnd, up_nodes[u], up_nodes[p], expo, binom, scratch)
         uhas[u] = True
 
 
 @numba.njit(inline="always")
-def _shift_local(out, src, tnd, child, par, parent, axis, down_idx, down_coef, down_ptr, dmono):
+def _shift_local(out, src, tnd, child, par, expo, binom, scratch):
     """out += the local expansion ``src`` about node ``par``'s centre, shifted
-    to node ``child``'s (L2L, L'_k = sum_{m >= k} C(m, k) L_m d^(m - k))."""
-    _monomials(tnd[child, 0] - tnd[par, 0], tnd[child, 1] - tnd[par, 1], tnd[child, 2] - tnd[par, 2], 1.0,
-               parent, axis, dmono)
-    _shift_rows(out, src, dmono, down_idx, down_coef, down_ptr, 0)
+    to node ``child``'s (L2L, :func:`_shift`)."""
+    _shift(out, src, tnd[child, 0] - tnd[par, 0], tnd[child, 1] - tnd[par, 1], tnd[child, 2] - tnd[par, 2], expo,
+           binom, False, scratch)
 
 
 @numba.njit(parallel=True, fastmath=_FM, cache=True, error_model="numpy")
 def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use_radii,
                  tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0s, g1s,
                  theta, direct_max, didx, dcoef, dcoef32, rows, unfold, deriv, local_scale, red_ptr, comp_order,
-                 grad_rows, down_idx, down_coef, down_ptr, parent, axis, n_blocks, single_rel, single_range, qscale,
+                 grad_rows, expo, binom, parent, axis, n_blocks, single_rel, single_range, qscale,
                  up_nodes, par_up, uloc, uhas, pend_off, pend_src, need_pot, ex, ey, ez, phi, nzero):
     """Field and potential sums at the (Morton-sorted) targets, group by group.
 
@@ -1251,7 +1287,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
         loc = np.empty((64, ncl))
         has = np.empty(64, np.bool_)
         grd = np.empty((3, ncl))
-        dmono = np.empty(ncl)
+        scratch = np.empty((3, ncl))
         tl = np.empty((ncl, 256))
         lv = np.empty((4, 256))
         dl = np.empty(256, np.int64)
@@ -1281,8 +1317,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                     # a top node starts from its upper parent's expansion
                     pu = par_up[tn[a]]
                     if pu >= 0 and uhas[pu]:
-                        _shift_local(loc[a], uloc[pu], tnd, tn[a], up_nodes[pu], parent, axis, down_idx, down_coef,
-                                     down_ptr, dmono)
+                        _shift_local(loc[a], uloc[pu], tnd, tn[a], up_nodes[pu], expo, binom, scratch)
                         has[a] = True
                 cnt = o0[a + 1] - o0[a]
                 if cnt == 0:
@@ -1297,8 +1332,7 @@ def evaluate_fmm(sstart, send, sfirst, snchild, snd, mm, sx, sy, sz, sq, sr, use
                 pa_ = counts[a]
                 if pa_ < 0 or not has[pa_]:
                     continue
-                _shift_local(loc[a], loc[pa_], tnd, tn[a], tn[pa_], parent, axis, down_idx, down_coef, down_ptr,
-                             dmono)
+                _shift_local(loc[a], loc[pa_], tnd, tn[a], tn[pa_], expo, binom, scratch)
                 has[a] = True
             for a in range(ntn):
                 ta = tn[a]

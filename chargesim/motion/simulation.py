@@ -32,7 +32,7 @@ import numpy as np
 from .boundaries import Collector, Domain, earliest_events
 from .forces import Coulomb, FieldModel
 from .inlets import Inlet, Population
-from .integrators import FRESH, PARALLEL_MIN, StepControl, make_integrator
+from .integrators import FRESH, PARALLEL_MIN, SCRATCH_COLUMNS, StepControl, make_integrator
 from .medium import Medium
 from .recorder import EVENT_FIELDS
 from .state import ParticleState, sphere_mass
@@ -297,6 +297,7 @@ class Simulation:
         self._beta = np.zeros(0)
         self._rated = 0  # leading rows of _beta that hold their particle's drag rate
         self._still = None  # the zero gas velocities of still gas, kept between steps
+        self._scratch = np.zeros((0, SCRATCH_COLUMNS))  # the integrator's per-row scratch, kept between steps
         self._started = set()
 
     # -- kinematics -----------------------------------------------------------
@@ -454,7 +455,9 @@ class Simulation:
         integ = self.integrator
         n = s.n
         codes = integ.assign(self._beta, dt, s.id)
-        f0 = np.zeros((n, 4))
+        if self._scratch.shape[0] != n:
+            self._scratch = np.zeros((n, SCRATCH_COLUMNS))
+        f0 = self._scratch  # carried with the rows: the schemes keep coefficients in it
         self._mixing(dt)
         x0 = s.position.copy()
         if n:
@@ -466,7 +469,8 @@ class Simulation:
         added = self._emit(dt)
         if added:
             codes = np.concatenate([codes, np.full(added, FRESH, dtype=np.int8)])
-            f0 = np.concatenate([f0, np.zeros((added, 4))])
+            f0 = np.concatenate([f0, np.zeros((added, SCRATCH_COLUMNS))])
+        self._scratch = f0
         self._field = sys_.field_model.field(s)
         for zone in sys_.charging:
             self.counters["rayleigh_capped"] += zone.apply(s, self._field, dt, sys_.medium.temperature,

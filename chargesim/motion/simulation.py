@@ -324,9 +324,10 @@ class Simulation:
         self._accel = np.empty((n, 3))
         _ACCEL[n >= PARALLEL_MIN](s.charge, s.diameter, s.density, np.ascontiguousarray(self._field), sys_.gravity,
                                   self._accel)
-        if sys_.medium.flow is None and self._still is not None and self._still.shape == (n, 3):
-            # still gas: the zeros of the last step serve again (nothing writes to them)
-            self._u = self._still
+        if sys_.medium.flow is None and self._still is not None and self._still.shape[0] >= n:
+            # still gas: the zeros of an earlier step serve again (nothing
+            # writes to them), their first rows when particles left
+            self._u = self._still[:n]
         else:
             self._u = np.ascontiguousarray(sys_.medium.gas_velocity(s.position))
             self._still = self._u if sys_.medium.flow is None else None

@@ -13,7 +13,9 @@ import math
 
 import numba
 import numpy as np
+from .._numba import serial_and_parallel
 from .._validate import positive as _positive, unit as _unit, vector as _vector
+from .integrators import PARALLEL_MIN
 
 _KINDS = ("open", "periodic", "reflecting")
 
@@ -150,50 +152,176 @@ class PlaneCollector(Collector):
                 "lo": self.lo.copy(), "hi": self.hi.copy(), "area": self.area}
 
 
+@numba.njit(inline="always")
+def _plane_touch(x0, x1, i, r, p, n, lo, hi):
+    """Segment fraction s where the sphere of radius r moving x0[i] -> x1[i]
+    first touches the plane through p with unit normal n (0 if it starts
+    touching, inf if it never does or touches outside the box [lo, hi]), and
+    the touching point projected on the plane (for a miss, the start point's
+    projection)."""
+    d0 = (x0[i, 0] - p[0]) * n[0] + (x0[i, 1] - p[1]) * n[1] + (x0[i, 2] - p[2]) * n[2] - r
+    d1 = (x1[i, 0] - p[0]) * n[0] + (x1[i, 1] - p[1]) * n[1] + (x1[i, 2] - p[2]) * n[2] - r
+    if d0 <= 0.0:
+        f = 0.0
+    elif d1 <= 0.0:
+        f = d0 / (d0 - d1)
+    else:
+        f = np.inf
+    hit = f < np.inf
+    t = f if hit else 0.0
+    xs0 = x0[i, 0] + t * (x1[i, 0] - x0[i, 0])
+    xs1 = x0[i, 1] + t * (x1[i, 1] - x0[i, 1])
+    xs2 = x0[i, 2] + t * (x1[i, 2] - x0[i, 2])
+    h = (xs0 - p[0]) * n[0] + (xs1 - p[1]) * n[1] + (xs2 - p[2]) * n[2]
+    q0 = xs0 - h * n[0]
+    q1 = xs1 - h * n[1]
+    q2 = xs2 - h * n[2]
+    # & rather than chained comparisons with `and`: the branches of the
+    # latter made the loop 2.5x slower (measured on the 2-core reference machine)
+    inside = (lo[0] <= q0) & (q0 <= hi[0]) & (lo[1] <= q1) & (q1 <= hi[1]) & (lo[2] <= q2) & (q2 <= hi[2])
+    return (f if (hit and inside) else np.inf), q0, q1, q2
+
+
+@numba.njit(inline="always")
+def _face_fraction(a0, a1, bound, upper):
+    """Fraction of the segment a0 -> a1 (one coordinate) where it passes
+    ``bound`` (an upper face when ``upper``), clipped to [0, 1]; inf where it
+    ends inside."""
+    # without branches on the data (the branching form took 1.7x the time,
+    # measured on the 2-core reference machine)
+    beyond = (a1 > bound) if upper else (a1 < bound)
+    den = a1 - a0
+    t = (bound - a0) / den if den != 0.0 else 0.0
+    return min(max(t, 0.0), 1.0) if beyond else np.inf
+
+
 @numba.njit(cache=True)
 def _plane_contact(x0, x1, radius, p, n, lo, hi, s, point):
-    """Segment fraction s where each particle's sphere first touches the
-    plane through p with unit normal n (0 if it starts touching, inf if it
-    never does or touches outside the box [lo, hi]), and the touching point
-    projected on the plane (for a miss, the start point's projection)."""
+    """:func:`_plane_touch` of each particle (the contact of one plane)."""
     for i in range(x0.shape[0]):
-        d0 = (x0[i, 0] - p[0]) * n[0] + (x0[i, 1] - p[1]) * n[1] + (x0[i, 2] - p[2]) * n[2] - radius[i]
-        d1 = (x1[i, 0] - p[0]) * n[0] + (x1[i, 1] - p[1]) * n[1] + (x1[i, 2] - p[2]) * n[2] - radius[i]
-        if d0 <= 0.0:
-            f = 0.0
-        elif d1 <= 0.0:
-            f = d0 / (d0 - d1)
-        else:
-            f = np.inf
-        hit = f < np.inf
-        t = f if hit else 0.0
-        xs0 = x0[i, 0] + t * (x1[i, 0] - x0[i, 0])
-        xs1 = x0[i, 1] + t * (x1[i, 1] - x0[i, 1])
-        xs2 = x0[i, 2] + t * (x1[i, 2] - x0[i, 2])
-        h = (xs0 - p[0]) * n[0] + (xs1 - p[1]) * n[1] + (xs2 - p[2]) * n[2]
-        q0 = xs0 - h * n[0]
-        q1 = xs1 - h * n[1]
-        q2 = xs2 - h * n[2]
-        point[i, 0] = q0
-        point[i, 1] = q1
-        point[i, 2] = q2
-        inside = lo[0] <= q0 <= hi[0] and lo[1] <= q1 <= hi[1] and lo[2] <= q2 <= hi[2]
-        s[i] = f if (hit and inside) else np.inf
+        s[i], point[i, 0], point[i, 1], point[i, 2] = _plane_touch(x0, x1, i, radius[i], p, n, lo, hi)
 
 
 @numba.njit(cache=True)
 def _face_crossing(a0, a1, bound, upper, s):
-    """Fraction of each segment a0 -> a1 (one coordinate) where it passes
-    ``bound`` (an upper face when ``upper``), clipped to [0, 1]; inf where it
-    ends inside. (One compiled pass: the numpy form took 0.08 ms at N = 1000.)"""
+    """:func:`_face_fraction` of each segment. (One compiled pass: the numpy
+    form took 0.08 ms at N = 1000.)"""
     for i in range(a0.size):
-        beyond = a1[i] > bound if upper else a1[i] < bound
-        if not beyond:
-            s[i] = np.inf
-            continue
-        den = a1[i] - a0[i]
-        t = (bound - a0[i]) / den if den != 0.0 else 0.0
-        s[i] = min(max(t, 0.0), 1.0)
+        s[i] = _face_fraction(a0[i], a1[i], bound, upper)
+
+
+# The earliest event of each particle is the smallest (s, surface index): the
+# first of equal fractions in surface order wins, as when the surfaces are
+# taken one after the other, whatever order they are evaluated in.
+
+def _earliest_py(x0, x1, radius, plane_index, p, n, lo, hi, face_index, face_axis, face_bound, face_upper,
+                 box_lo, box_hi, best, which, point):
+    """Earliest contact of each particle with the planes (rows of p, n, lo,
+    hi; surface indices ``plane_index``) and the open faces (``face_*``):
+    written to best (inf: none), which (-1: none), point. Returns the number
+    of segments ending outside [box_lo, box_hi) (to be folded back)."""
+    outside = 0
+    for i in numba.prange(x0.shape[0]):
+        for a in range(3):
+            outside += (x1[i, a] < box_lo[a]) | (x1[i, a] >= box_hi[a])
+        b = np.inf
+        w = -1
+        c0 = c1 = c2 = 0.0
+        for k in range(plane_index.size):
+            sk, q0, q1, q2 = _plane_touch(x0, x1, i, radius[i], p[k], n[k], lo[k], hi[k])
+            j = plane_index[k]
+            if (sk < b) | ((sk == b) & (j < w)):
+                b, w, c0, c1, c2 = sk, j, q0, q1, q2
+        for k in range(face_index.size):
+            a = face_axis[k]
+            sk = _face_fraction(x0[i, a], x1[i, a], face_bound[k], face_upper[k])
+            j = face_index[k]
+            if (sk < b) | ((sk == b) & (j < w)):
+                b, w = sk, j
+                c0 = x0[i, 0] + sk * (x1[i, 0] - x0[i, 0])
+                c1 = x0[i, 1] + sk * (x1[i, 1] - x0[i, 1])
+                c2 = x0[i, 2] + sk * (x1[i, 2] - x0[i, 2])
+        best[i] = b
+        which[i] = w
+        point[i, 0] = c0
+        point[i, 1] = c1
+        point[i, 2] = c2
+    return outside
+
+
+def _merge_py(s, pt, j, best, which, point):
+    """Take surface j's contacts (s, pt) where they are earlier."""
+    for i in numba.prange(s.size):
+        if s[i] < best[i] or (s[i] == best[i] and j < which[i]):
+            best[i] = s[i]
+            which[i] = j
+            point[i, 0] = pt[i, 0]
+            point[i, 1] = pt[i, 1]
+            point[i, 2] = pt[i, 2]
+
+
+_EARLIEST = serial_and_parallel(_earliest_py)
+_MERGE = serial_and_parallel(_merge_py)
+
+
+def earliest_events(collectors, domain, x0, x1, radius):
+    """Earliest contact of each particle along x0 -> x1 with the collectors
+    or the domain's outlets.
+
+    Parameters
+    ----------
+    collectors : sequence of Collector
+        Surfaces 0 .. K-1.
+    domain : Domain
+        Its outlets are surfaces K, K+1, ... in ``domain.outlets`` order.
+    x0, x1 : ndarray (n, 3)
+        C-contiguous float64 segment ends, m.
+    radius : ndarray (n,)
+        Particle radii, m.
+
+    Returns
+    -------
+    s : ndarray (n,)
+        Segment fraction of the earliest contact, inf for none.
+    which : ndarray of int64 (n,)
+        Its surface index, -1 for none (the lower index wins a tie).
+    point : ndarray (n, 3)
+        Its point (meaningful where ``which >= 0``), m.
+    fold : bool
+        Whether an end point x1 lies outside the box on a periodic or
+        reflecting axis (else :meth:`Domain.fold` has nothing to do: its
+        numpy masks took 0.6 ms an axis at N = 1e5).
+
+    Plane collectors and outlets are found in one compiled pass over the
+    particles (in parallel threads from ``integrators.PARALLEL_MIN``
+    particles); other collectors by their ``contact`` and a compiled merge.
+    Measured on the 2-core reference machine (the other core busy) at N =
+    1e5, two plates and two outlets: 4.0 ms against 10.9 ms for a
+    ``contact`` call per surface, numpy merging and the fold's masks.
+    """
+    m = x0.shape[0]
+    parallel = m >= PARALLEL_MIN
+    planes = [(k, c) for k, c in enumerate(collectors) if type(c) is PlaneCollector]
+    faces = domain.outlets
+    k0 = len(collectors)
+    best = np.empty(m)
+    which = np.empty(m, dtype=np.int64)
+    point = np.empty((m, 3))
+    folded = np.array([k != "open" for k in domain.kinds])
+    outside = _EARLIEST[parallel](
+        x0, x1, radius, np.array([k for k, _ in planes], dtype=np.int64),
+        np.array([c.point for _, c in planes]).reshape(-1, 3), np.array([c.unit_normal for _, c in planes]).reshape(-1, 3),
+        np.array([c.lo for _, c in planes]).reshape(-1, 3), np.array([c.hi for _, c in planes]).reshape(-1, 3),
+        np.arange(k0, k0 + len(faces), dtype=np.int64), np.array([f[0] for f in faces], dtype=np.int64),
+        np.array([domain.hi[a] if side > 0 else domain.lo[a] for a, side, _ in faces], dtype=np.float64),
+        np.array([side > 0 for _, side, _ in faces], dtype=np.bool_),
+        np.where(folded, domain.lo, -np.inf), np.where(folded, domain.hi, np.inf), best, which, point)
+    for k, c in enumerate(collectors):
+        if type(c) is not PlaneCollector:
+            s, pt = c.contact(x0, x1, radius)
+            _MERGE[parallel](np.ascontiguousarray(s, dtype=np.float64), np.ascontiguousarray(pt, dtype=np.float64),
+                             k, best, which, point)
+    return best, which, point, outside > 0
 
 
 def _enter_sphere(w0, dw, reff, inside):

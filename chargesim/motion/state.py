@@ -68,19 +68,21 @@ def sphere_mass(diameter, density):
 
 
 @numba.njit(cache=True)
-def _keep_rows(arr, alive):
-    """Move the rows i with alive[i] to the front of ``arr`` (n, k), in order.
+def _drop_rows(flat, k, dead, n):
+    """Drop rows ``dead`` (sorted indices) of the first n rows of ``flat``
+    (rows of k values), moving the later rows up in order, in place.
 
-    One pass in place: numpy's masked copy of each column took 9 ms a step
-    at N = 1e5 (a temporary per column)."""
-    w = 0
-    for i in range(alive.size):
-        if alive[i]:
-            if w != i:
-                for c in range(arr.shape[1]):
-                    arr[w, c] = arr[i, c]
+    Rows before the first dead one stay where they are, and runs of live
+    rows are moved without testing each row: measured on the 2-core
+    reference machine (the other core busy) at N = 1e5 with 50 dead rows,
+    the ten columns took 2.5 ms against 5.8 ms for a pass testing each
+    row's alive flag."""
+    w = dead[0] * k
+    for j in range(dead.size):
+        end = (dead[j + 1] if j + 1 < dead.size else n) * k
+        for e in range((dead[j] + 1) * k, end):
+            flat[w] = flat[e]
             w += 1
-    return w
 
 
 class ParticleState:
@@ -218,21 +220,30 @@ class ParticleState:
         Parameters
         ----------
         extra : sequence of ndarray
-            Further per-row arrays (length ``n``) to filter alike; returned.
+            Further per-row arrays (length ``n``) to filter alike: in place
+            (a copy first if not C-contiguous and writeable), returned as views
+            of their first rows.
 
         Returns
         -------
         list of ndarray
             The filtered ``extra`` arrays.
         """
-        alive = self.alive.copy()
-        keep = int(alive.sum())
-        if keep == self._n:
+        n = self._n
+        dead = np.flatnonzero(~self.alive)
+        if dead.size == 0:
             return list(extra)
-        for k, arr in self._data.items():
-            _keep_rows(arr.reshape(arr.shape[0], -1), alive)
-        self._n = keep
-        return [e[alive] for e in extra]
+        for arr in self._data.values():
+            _drop_rows(arr.reshape(-1), arr.size // arr.shape[0], dead, n)
+        self._n = keep = n - dead.size
+        out = []
+        for e in extra:
+            if not (e.flags.c_contiguous and e.flags.writeable):
+                e = e.copy()
+            # (masked copies of the run loop's codes and f0: 2.4 ms at N = 1e5, in place 0.6 ms)
+            _drop_rows(e.reshape(-1), e.size // n, dead, n)
+            out.append(e[:keep])
+        return out
 
     # -- copies and checkpoints ----------------------------------------------
     def copy(self):

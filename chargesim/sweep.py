@@ -528,6 +528,25 @@ def run_sweep(sweep, out_dir, *, scheduler=None, workers=None, quiet=True):
     return rows
 
 
+def _exit_with_parent():
+    """Worker initializer: a thread that ends the worker when the sweep's
+    process ends. A sweep killed hard (SIGKILL, a crashed session) would
+    otherwise leave its workers running their points to the end, and a
+    resumed sweep would run the same points beside them."""
+    import multiprocessing
+    import threading
+
+    parent = multiprocessing.parent_process()
+    if parent is None:
+        return
+
+    def watch():
+        parent.join()  # returns when the parent's end of the pipe closes
+        os._exit(1)
+
+    threading.Thread(target=watch, name="exit-with-parent", daemon=True).start()
+
+
 def _execute(todo, scheduler, workers, quiet):
     if not todo:
         return
@@ -554,8 +573,8 @@ def _execute(todo, scheduler, workers, quiet):
 
             n = workers or os.cpu_count() or 1
             # spawn: numba's thread pool must not be inherited through fork
-            with ProcessPoolExecutor(max_workers=min(n, len(todo)),
-                                     mp_context=multiprocessing.get_context("spawn")) as pool:
+            with ProcessPoolExecutor(max_workers=min(n, len(todo)), mp_context=multiprocessing.get_context("spawn"),
+                                     initializer=_exit_with_parent) as pool:
                 futures = [pool.submit(run_point, s) for s in todo]
                 for fut in as_completed(futures):
                     yield fut.result()

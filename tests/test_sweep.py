@@ -153,6 +153,33 @@ def test_failing_point_is_recorded_and_others_go_on(tmp_path, capsys):
     assert "point 1:" in capsys.readouterr().err
 
 
+def _children(pid):
+    """Processes whose parent is ``pid`` (Linux /proc; empty elsewhere)."""
+    out = []
+    if not os.path.isdir("/proc"):
+        return out
+    for name in os.listdir("/proc"):
+        if not name.isdigit():
+            continue
+        try:
+            with open(f"/proc/{name}/stat") as fh:
+                fields = fh.read().rsplit(")", 1)[1].split()
+        except OSError:
+            continue
+        if int(fields[1]) == pid:
+            out.append(int(name))
+    return out
+
+
+def _alive(pid):
+    """Whether process ``pid`` runs (a zombie does not)."""
+    try:
+        with open(f"/proc/{pid}/stat") as fh:
+            return fh.read().rsplit(")", 1)[1].split()[0] != "Z"
+    except OSError:
+        return False
+
+
 def test_killed_sweep_resumes_skipping_complete_points(local_run, tmp_path):
     tmp, path, _ = local_run
     out = tmp_path / "killed"
@@ -163,9 +190,18 @@ def test_killed_sweep_resumes_skipping_complete_points(local_run, tmp_path):
     deadline = time.time() + 240
     while not first.exists() and time.time() < deadline and proc.poll() is None:
         time.sleep(0.1)
+    workers = _children(proc.pid)
     proc.send_signal(signal.SIGKILL)
     proc.wait()
     assert first.exists(), "the first point never completed"
+    # its pool workers end with it (they would run on, orphaned, beside the
+    # resumed sweep); Linux's /proc lists them
+    if os.path.isdir("/proc"):
+        assert workers, "no worker process found"
+        deadline = time.time() + 30
+        while any(_alive(w) for w in workers) and time.time() < deadline:
+            time.sleep(0.1)
+        assert not any(_alive(w) for w in workers), "a worker outlived the killed sweep"
     stamp = first.stat().st_mtime_ns
     assert cli.main(["sweep", path, "-o", str(out), "--workers", "2", "--quiet"]) == 0
     assert first.stat().st_mtime_ns == stamp  # complete point skipped, not rerun

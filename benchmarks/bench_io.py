@@ -111,7 +111,8 @@ def main():
     from chargesim.io import ResultsWriter
 
     build(1000, 10).run(steps=2)  # compile the kernels once
-    keys = ("bare", "bare_cpu", "wall", "cpu", "inside", "busy", "size", "paired", "bare_steps", "outside")
+    keys = ("bare", "bare_cpu", "wall", "cpu", "inside", "busy", "busy_cpu", "size", "paired", "bare_steps",
+            "outside")
     rec = {L: {k: [] for k in keys} for L in lengths}
     with tempfile.TemporaryDirectory() as tmp:
         for r in range(reps):
@@ -139,13 +140,15 @@ def main():
                 m["outside"].append((m["wall"][-1] - sim.step_seconds) / sim.step_seconds)
                 # 0 for a writer without a thread (an older commit, benchmarked for comparison)
                 m["busy"].append(getattr(writer, "background_seconds", 0.0))
+                m["busy_cpu"].append(getattr(writer, "background_cpu_seconds", float("nan")))
                 m["size"].append(os.path.getsize(path) + os.path.getsize(os.path.splitext(path)[0] + ".xdmf"))
                 os.remove(path)
     med = statistics.median
     print(f"HDF5 results writer, N = {n}, {reps} rounds, {numba.get_num_threads()} threads, "
           f"space charge {'on' if args.coulomb else 'off'} (medians)")
     print(f"{'cadence of a run of':<20}{'timed':>7}{'frames':>7}{'bare s':>8}{'seconds':>9}{'overhead':>10}"
-          f"{'paired':>8}{'outside':>9}{'steps':>8}{'CPU':>8}{'in calls':>9}{'thread':>8}{'MB':>7}{'MB/s':>7}")
+          f"{'paired':>8}{'outside':>9}{'steps':>8}{'CPU':>8}{'in calls':>9}{'thread':>8}{'th.CPU':>8}{'cost':>7}"
+          f"{'MB':>7}{'MB/s':>7}")
     raw_row = 8 + 24 + 24 + 8 + 8 + 8 + 4
     for L in lengths:
         m = rec[L]
@@ -153,11 +156,13 @@ def main():
         frames = steps[L] // every + 1
         tb, cb = med(m["bare"]), med(m["bare_cpu"])
         tr, cr, ti, tw, size = med(m["wall"]), med(m["cpu"]), med(m["inside"]), med(m["busy"]), med(m["size"])
+        tc = med(m["busy_cpu"])
         writing = tw if tw > 0 else ti  # the thread's writing, or the calls' for a writer without a thread
         print(f"{f'{L} steps (every {every})':<20}{steps[L]:>7}{frames:>7}{tb:>8.2f}{tr:>9.3f}"
               f"{100 * (tr - tb) / tb:>9.1f}%{100 * med(m['paired']):>7.1f}%{100 * med(m['outside']):>8.1f}%"
               f"{med(m['bare_steps']) / tb:>8.4f}{100 * (cr - cb) / cb:>7.1f}%"
-              f"{100 * ti / tr:>8.1f}%{tw:>8.2f}{size / 1e6:>7.1f}{size / 1e6 / writing:>7.0f}")
+              f"{100 * ti / tr:>8.1f}%{tw:>8.2f}{tc:>8.2f}{100 * (ti + tc) / tb:>6.1f}%"
+              f"{size / 1e6:>7.1f}{size / 1e6 / writing:>7.0f}")
     print("timed: steps in each timed run; bare s: the run without a recorder; overhead: ratio of the medians;")
     print("paired: median of each recorded run against the bare run of its round;")
     print("outside: median over recorded runs of their time outside the physics steps against the steps' time")
@@ -165,7 +170,10 @@ def main():
     print("'paired' shows whether there is one); steps: share of the bare run spent in its steps (the rest is")
     print("the loop's own bookkeeping);")
     print("CPU: process CPU time (all threads) against the bare run's; in calls: share of the run spent in the")
-    print("writer's calls; thread: seconds the writer thread spent writing; MB on disk and MB/s of that thread.")
+    print("writer's calls; thread: seconds the writer thread spent writing; th.CPU: its CPU seconds (without")
+    print("its waits for the disk and the interpreter lock); cost: in-calls seconds + th.CPU against the bare")
+    print("run's seconds, the writer's own work, steady where the wall-clock overhead drifts with the machine's")
+    print("load (it leaves out lock hand-overs between the threads); MB on disk and MB/s of that thread.")
     print(f"goal: overhead <= 5 % at the default cadence (raw frame data {n * raw_row / 1e6:.1f} MB a frame)")
 
 

@@ -34,9 +34,9 @@ def _events(k, step, surface="plate"):
     }
 
 
-def _write_run(path, *, finish=True, frames=4):
+def _write_run(path, *, finish=True, frames=4, **writer_options):
     rng = np.random.default_rng(7)
-    w = ResultsWriter(path, scenario_text="[run]\nsteps = 4\n", seed=7)
+    w = ResultsWriter(path, scenario_text="[run]\nsteps = 4\n", seed=7, **writer_options)
     x, y, z = np.linspace(0, 1, 5), np.linspace(-1, 1, 4), np.array([0.0, 0.1, 0.2])
     X, Y, Z = np.meshgrid(x, y, z, indexing="ij")
     w.write_field("applied", x, y, z, potential=1e3 * X, field=np.stack([-1e3 + 0 * X, 0 * Y, 0 * Z], -1))
@@ -84,11 +84,14 @@ def test_layout_root_attributes_and_units(tmp_path):
                 missing.append(name)
         f.visititems(visit)
         assert missing == []
-        # appendable datasets are chunked and compressed
-        assert f["frames/position"].chunks is not None and f["frames/step"].compression == "gzip"
-        # integer frame columns: HDF5's lossless scale-offset filter (cheaper to write than deflate)
-        assert f["frames/id"].scaleoffset == 0 and f["frames/population"].scaleoffset == 0
-        assert f["deposits/position"].compression == "gzip"
+        # appendable datasets are chunked; integer columns take HDF5's lossless scale-offset
+        # filter (cheaper to write than deflate), text columns deflate, float columns none by default
+        assert f["frames/position"].chunks is not None and f["frames/position"].compression is None
+        for name in ("frames/id", "frames/population", "frames/step", "deposits/id", "escapes/id",
+                     "diagnostics/step"):
+            assert f[name].scaleoffset == 0, name
+        assert f["deposits/surface"].compression == "gzip" and f["deposits/surface"].shuffle
+        assert f["deposits/position"].compression is None and f["diagnostics/values"].compression is None
         assert f["deposits/position"].maxshape == (None, 3)
 
 
@@ -113,6 +116,29 @@ def test_reader_round_trip(tmp_path):
     assert g["potential"].shape == (5, 4, 3) and g["field"].shape == (5, 4, 3, 3)
     np.testing.assert_array_equal(g["potential"][:, 1, 2], 1e3 * np.linspace(0, 1, 5))
     assert r.surfaces() == ["plate", "other"]
+
+
+@pytest.mark.parametrize("options, floats, others", [
+    ({"float_compression": "gzip"}, "gzip", "gzip"),
+    ({"compression": None}, None, None),
+])
+def test_filters_are_chosen_and_lossless(tmp_path, options, floats, others):
+    """Deflated float columns, or no filters at all: the same values read back."""
+    plain, other = str(tmp_path / "plain.h5"), str(tmp_path / "other.h5")
+    _write_run(plain)
+    _write_run(other, **options)
+    with h5py.File(other, "r") as f:
+        for name in ("frames/position", "deposits/time", "escapes/charge", "diagnostics/values"):
+            assert f[name].compression == floats, name
+        assert f["deposits/surface"].compression == others
+        assert f["frames/id"].scaleoffset == (0 if others else None)
+    a, b = open_results(plain), open_results(other)
+    for k in range(len(a.frames)):
+        for col, v in a.frames[k].items():
+            np.testing.assert_array_equal(b.frames[k][col], v, err_msg=col)
+    for group in ("deposits", "escapes", "diagnostics"):
+        for col, v in getattr(a, group).items():
+            np.testing.assert_array_equal(getattr(b, group)[col], v, err_msg=f"{group}/{col}")
 
 
 def test_overwrite_refused_and_finished_resume_signal(tmp_path):

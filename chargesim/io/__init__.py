@@ -7,7 +7,7 @@ API summary (the scenario builder and ``chargesim report`` build against this)
 -----------------------------------------------------------------------------
 Writing a run (``writer.py``)
     ``ResultsWriter(path, *, scenario_text, seed, overwrite=False,
-    compression="gzip", frame_float_compression=None, flush_interval=1.0)``
+    compression="gzip", float_compression=None, flush_interval=1.0)``
     implements the recorder protocol of ``chargesim.motion.recorder``
     (``start``, ``frame``, ``deposits``, ``escapes``, ``diagnostics``,
     ``checkpoint``, ``finish``). While the run goes everything lands in
@@ -16,7 +16,8 @@ Writing a run (``writer.py``)
     checkpoint) and checkpoints in ``PATH.checkpoint`` (written atomically),
     written by one background thread in call order (the calls copy what they
     are handed; ``finish`` and ``close`` wait for the thread, whose errors
-    the next call raises; ``writer.background_seconds`` is its busy time);
+    the next call raises; ``writer.background_seconds`` is its busy time,
+    ``writer.background_cpu_seconds`` its CPU time);
     ``finish(summary)`` writes ``/final`` and ``/summary`` last, renames
     ``PATH.partial`` -> ``PATH``, writes the XDMF sidecar ``PATH`` with suffix
     ``.xdmf``, and removes the checkpoint. ``/final`` is taken from

@@ -66,14 +66,14 @@ _FRAME_CHUNK = 16384
 _EVENT_CHUNK = 1024
 _DIAG_CHUNK = 1024  # frame index and diagnostics step/time: 8 bytes a row
 _DIAG_VALUE_CHUNK = 64  # diagnostics values: 64 columns of 8 bytes a row
-#: Filter of the integer frame columns (id, population) when compressing:
+#: Filter of the appendable integer columns (ids, populations, steps) when compressing:
 #: HDF5's scale-offset filter, lossless for integers (each chunk stores its
 #: minimum and the differences in as few bits as they need), built into every
 #: HDF5 library. Measured per frame of 1e5 particles on the writer thread:
 #: 2.6 + 1.6 ms for id + population against 4.6-7.4 + 1.9-2.4 ms with deflate
 #: and shuffle, for 0.2 MB on disk against 0.09 MB (of 8.4 MB a frame); the
 #: thread's CPU is what slows the run's steps beside it.
-_INT_FRAME_KW = {"scaleoffset": 0}
+_INT_KW = {"scaleoffset": 0}
 #: Most bytes of copied records waiting for the writer thread (an item larger
 #: than this still goes, alone): the run waits rather than fill the memory
 #: when the disk is slower than the run.
@@ -161,16 +161,17 @@ class ResultsWriter:
     overwrite : bool
         Replace an existing ``path`` at ``finish``; else ``FileExistsError``.
     compression : {"gzip", "lzf", None}
-        Filter of the appendable datasets (deflate level 1 + shuffle for
-        "gzip", which every HDF5 reader has; "lzf" needs h5py's plugin). The
-        integer frame columns use HDF5's scale-offset filter instead
-        (lossless, cheaper to write), None: no filter at all.
-    frame_float_compression : {"gzip", "lzf", None}
-        Filter of the floating-point frame columns (position, velocity,
-        charge, diameter, weight). Default None: measured on 1e5 particles,
-        deflate shrinks them by only ~15 % at 10-20x the write time, which
-        would dominate the output overhead; the integer columns take the
-        scale-offset filter (see ``compression``).
+        Filter of the appendable text columns (surface names; deflate level
+        1 + shuffle for "gzip", which every HDF5 reader has; "lzf" needs
+        h5py's plugin). The integer columns take HDF5's scale-offset filter
+        instead (lossless, cheaper to write); None: no filter at all.
+    float_compression : {"gzip", "lzf", None}
+        Filter of the appendable floating-point columns (frames, deposits,
+        escapes, diagnostics). Default None: measured on 1e5 particles,
+        deflate shrinks float64 frame columns by only ~15 % at 10-20x the
+        write time, and each flush recompresses the partly filled chunk of
+        every compressed dataset (with the event and diagnostics floats
+        deflated, the writer thread spent ~1.5x the CPU time of a run).
     flush_interval : float
         Longest wall-clock time, s, between hand-overs of deposit, escape
         and diagnostics records to the writer thread, which writes and
@@ -184,6 +185,10 @@ class ResultsWriter:
     background_seconds : float
         Wall time, s, the writer thread has spent writing so far (frames,
         events, flushes, fsyncs, checkpoints), overlapped with the run.
+    background_cpu_seconds : float
+        CPU time, s, of that thread's writing (without its waits for the
+        disk and for Python's interpreter lock): what it takes from the run
+        on a machine whose cores the run uses.
 
     Notes
     -----
@@ -193,7 +198,7 @@ class ResultsWriter:
     """
 
     def __init__(self, path, *, scenario_text, seed, overwrite=False, compression="gzip",
-                 frame_float_compression=None, flush_interval=1.0, _reopen=False):
+                 float_compression=None, flush_interval=1.0, _reopen=False):
         self.path = os.fspath(path)
         self.partial_path = self.path + S.PARTIAL_SUFFIX
         self.checkpoint_path = self.path + S.CHECKPOINT_SUFFIX
@@ -202,7 +207,7 @@ class ResultsWriter:
         self.scenario_text = scenario_text
         self.seed = seed
         self._ckw = _compression_kw(compression)
-        self._fkw = _compression_kw(frame_float_compression)
+        self._fkw = _compression_kw(float_compression)
         self._f = None
         self._pending_fields = []
         self._started = False
@@ -223,6 +228,7 @@ class ResultsWriter:
             raise ValueError(f"flush_interval must be >= 0 s, got {flush_interval!r}")
         self._last_hand_over = _time.monotonic()
         self.background_seconds = 0.0
+        self.background_cpu_seconds = 0.0
         self._queue = queue.Queue()
         self._queued_bytes = 0
         self._room = threading.Condition()
@@ -269,11 +275,20 @@ class ResultsWriter:
         self._resumed = True
         self._start_thread()
 
-    def _rows(self, group, name, dtype, shape, units, chunk, ckw=None):
+    def _filters(self, dtype):
+        """Filter keywords of an appendable column of this dtype (see ``__init__``)."""
+        kind = np.dtype(dtype).kind
+        if kind == "f":
+            return self._fkw
+        if kind in "iu":
+            return _INT_KW if self._ckw else {}
+        return self._ckw
+
+    def _rows(self, group, name, dtype, shape, units, chunk):
         if dtype == "name":
             dtype = S.name_dtype()
         ds = group.create_dataset(name, shape=(0,) + shape, maxshape=(None,) + shape, dtype=dtype,
-                                  chunks=(chunk,) + shape, **(self._ckw if ckw is None else ckw))
+                                  chunks=(chunk,) + shape, **self._filters(dtype))
         ds.attrs["units"] = units
         return ds
 
@@ -282,8 +297,7 @@ class ResultsWriter:
         for name, (dt, unit) in S.FRAME_INDEX.items():
             self._rows(fr, name, dt, (), unit, _DIAG_CHUNK)
         for name, (dt, shp, unit) in S.FRAME_SCHEMA.items():
-            ckw = self._fkw if np.dtype(dt).kind == "f" else _INT_FRAME_KW if self._ckw else {}
-            self._rows(fr, name, dt, shp, unit, _FRAME_CHUNK, ckw)
+            self._rows(fr, name, dt, shp, unit, _FRAME_CHUNK)
         for gname in ("deposits", "escapes"):
             g = f.create_group(gname)
             for name, (dt, shp, unit) in S.EVENT_SCHEMA.items():
@@ -296,7 +310,7 @@ class ResultsWriter:
             declared = {str(k): S.guess_unit(str(k)) for k in declared}
         width = len(declared) + S.DIAGNOSTIC_COLUMNS
         vals = dg.create_dataset("values", shape=(0, width), maxshape=(None, width), dtype=np.float64,
-                                 chunks=(_DIAG_VALUE_CHUNK, width), **self._ckw)
+                                 chunks=(_DIAG_VALUE_CHUNK, width), **self._filters(np.float64))
         vals.attrs["units"] = "per column: /diagnostics/units"
         names = dg.create_dataset("names", shape=(width,), dtype=S.name_dtype())
         names.attrs["units"] = "1"
@@ -429,12 +443,13 @@ class ResultsWriter:
                 return
             fn, args, nbytes = item
             if self._error is None:  # after an error the rest is dropped: the run is failing
-                t = _time.perf_counter()
+                t, c = _time.perf_counter(), _time.thread_time()
                 try:
                     fn(*args)
                 except BaseException as exc:  # noqa: BLE001 - handed to the run's thread
                     self._error = exc
                 self.background_seconds += _time.perf_counter() - t
+                self.background_cpu_seconds += _time.thread_time() - c
             with self._room:
                 self._queued_bytes -= nbytes
                 self._room.notify_all()

@@ -23,6 +23,15 @@ that thread's writing. On a shared machine the CPU time is the steadier
 measure of the writer's cost: the wall time of the bare runs drifts with the
 other load by more than the writer costs.
 
+Whole runs a minute apart see the machine's load drift by more than the
+writer costs. So each run length is also measured interleaved: the bare run
+and the recorded run (same seed, so the same particles in both) advance in
+turn by a chunk of ``--interleave`` steps (97 by default: prime, so that no
+frame or checkpoint falls on a chunk's last step, where a run makes none),
+and the overhead is the median over the chunk pairs, each pair a few seconds
+apart. The writer's ``finish`` is held back to the end and timed apart, with
+the file's opening (in the first chunk) as the run's fixed cost.
+
     python benchmarks/bench_io.py            # N = 1e5, whole runs of 200 and 2000 steps, 2 repeats
     python benchmarks/bench_io.py --quick    # N = 2e4, runs of 100 and 1000 steps, 2 repeats
     python benchmarks/bench_io.py --coulomb --run-lengths 200 --repeats 1
@@ -69,6 +78,47 @@ def _time_steps(sim):
     return sim
 
 
+class _HeldFinish:
+    """The writer, its ``finish`` held back (a run advanced in chunks, one
+    ``Simulation.run`` call each, is one recorded run)."""
+
+    def __init__(self, inner):
+        self.inner = inner
+        self.summary = None
+
+    def __getattr__(self, name):
+        return getattr(self.inner, name)
+
+    def finish(self, summary):
+        self.summary = summary
+
+
+def interleaved(n, length, chunk, coulomb, path):
+    """Bare and recorded runs of ``length`` steps advanced by turns of ``chunk``
+    steps. Returns the per-chunk seconds of both, the recorded run's first
+    chunk (the file's opening in it) and its finish, s."""
+    from chargesim.io import ResultsWriter
+
+    bare, recd = build(n, length, coulomb=coulomb), build(n, length, coulomb=coulomb)
+    writer = _HeldFinish(ResultsWriter(path, scenario_text="benchmark channel", seed=1))
+    tb, tr = [], []
+    done = 0
+    while done < length:
+        k = min(chunk, length - done)
+        t = time.perf_counter()
+        bare.run(steps=k)
+        tb.append(time.perf_counter() - t)
+        t = time.perf_counter()
+        recd.run(steps=k, recorder=writer)
+        tr.append(time.perf_counter() - t)
+        done += k
+    t = time.perf_counter()
+    writer.inner.finish(writer.summary)
+    fin = time.perf_counter() - t
+    os.remove(path)
+    return tb, tr, fin
+
+
 class _Timed:
     """Wraps the writer to add up the time spent in its calls."""
 
@@ -98,6 +148,8 @@ def main():
                     help="run lengths, steps, whose default cadence is measured (comma-separated; "
                          "default 200,2000; quick 100,1000)")
     ap.add_argument("--repeats", type=int, default=2, help="timed rounds (default 2)")
+    ap.add_argument("--interleave", type=int, default=97,
+                    help="steps per chunk of the interleaved measurement (default 97; 0: skip it)")
     ap.add_argument("--coulomb", action="store_true",
                     help="space charge on (method auto): the usual case, each step far dearer")
     args = ap.parse_args()
@@ -174,6 +226,29 @@ def main():
     print("its waits for the disk and the interpreter lock); cost: in-calls seconds + th.CPU against the bare")
     print("run's seconds, the writer's own work, steady where the wall-clock overhead drifts with the machine's")
     print("load (it leaves out lock hand-overs between the threads); MB on disk and MB/s of that thread.")
+    if args.interleave > 0:
+        print()
+        print(f"interleaved by chunks of {args.interleave} steps, {reps} rounds (medians)")
+        print(f"{'cadence of a run of':<20}{'chunks':>7}{'bare s':>8}{'overhead':>10}{'first':>8}{'finish':>8}"
+              f"{'whole':>8}")
+        with tempfile.TemporaryDirectory() as tmp:
+            for L in lengths:
+                over, first, fin, whole, bare_s = [], [], [], [], []
+                for r in range(reps):
+                    tb, tr, f = interleaved(n, L, args.interleave, args.coulomb, os.path.join(tmp, "chunks.h5"))
+                    # the first chunk opens the file: its cost is reported apart, as the finish
+                    over += [(b2 - b1) / b1 for b1, b2 in zip(tb[1:], tr[1:])]
+                    first.append(tr[0] - tb[0])
+                    fin.append(f)
+                    whole.append((sum(tr) + f - sum(tb)) / sum(tb))
+                    bare_s.append(sum(tb))
+                every = max(1, L // 50)
+                print(f"{f'{L} steps (every {every})':<20}{len(over):>7}{med(bare_s):>8.2f}"
+                      f"{100 * med(over):>9.1f}%{med(first):>8.2f}{med(fin):>8.2f}{100 * med(whole):>7.1f}%")
+        print("overhead: median over the chunk pairs (after the first) of the recorded chunk's time against the")
+        print("bare chunk's just before it; first: extra seconds of the first chunk (the file opened in it);")
+        print("finish: seconds of the writer's finish (/final, summary, rename, sidecar); whole: all recorded")
+        print("chunks and the finish against all bare chunks.")
     print(f"goal: overhead <= 5 % at the default cadence (raw frame data {n * raw_row / 1e6:.1f} MB a frame)")
 
 

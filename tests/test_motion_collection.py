@@ -195,6 +195,68 @@ def test_snapshot_restore_is_bitwise_identical_to_an_uninterrupted_run():
     assert rec_b.diagnostic_rows[-1] == rec_a.diagnostic_rows[-1]
 
 
+def test_events_are_gathered_and_all_handed_over_before_each_checkpoint(monkeypatch):
+    """The loop hands a recorder a few steps' deposits and escapes at once: the
+    same records in the same order as one call per step, and every record of
+    a step before that step's frame, diagnostics row, checkpoint and finish
+    (the checkpoint counts them: a resumed run starts after them)."""
+
+    class Log(MemoryRecorder):
+        def __init__(self):
+            super().__init__(keep_frames=False)
+            self.calls = []
+
+        def deposits(self, records):
+            super().deposits(records)
+            self.calls.append(("deposits", float(np.min(records["time"])), float(np.max(records["time"]))))
+
+        def escapes(self, records):
+            super().escapes(records)
+            self.calls.append(("escapes", float(np.min(records["time"])), float(np.max(records["time"]))))
+
+        def frame(self, step, time, state):
+            self.calls.append(("frame", time, time))
+
+        def diagnostics(self, step, time, values):
+            super().diagnostics(step, time, values)
+            self.calls.append(("diagnostics", time, time))
+
+        def checkpoint(self, snapshot):
+            super().checkpoint(snapshot)
+            self.calls.append(("checkpoint", snapshot["time"], snapshot["time"]))
+
+        def finish(self, summary):
+            super().finish(summary)
+            self.calls.append(("finish", summary["time"], summary["time"]))
+
+    def run(event_steps):
+        monkeypatch.setattr(Simulation, "EVENT_STEPS", event_steps)
+        monkeypatch.setattr(Simulation, "EVENT_SECONDS", 1e9)
+        sim = _sim(_rich_system())  # a checkpoint every 15 steps, frames every 10, diagnostics every 5
+        rec = Log()
+        sim.run(steps=40, recorder=rec)
+        return rec
+
+    each, gathered = run(1), run(16)
+    assert each.all_deposits["id"].size > 0
+    assert gathered.all_escapes.keys() == each.all_escapes.keys()
+    for got, want in ((gathered.all_deposits, each.all_deposits), (gathered.all_escapes, each.all_escapes)):
+        for k in want:
+            assert np.array_equal(got[k], want[k]), k
+    n_each = sum(c[0] == "deposits" for c in each.calls)
+    assert sum(c[0] == "deposits" for c in gathered.calls) < n_each
+    # every record of a step reaches the recorder before the reports at the
+    # step's end (an event happens within its step, so before that time) and
+    # none of a later step does
+    events = ("deposits", "escapes")
+    for i, (kind, t, _) in enumerate(gathered.calls):
+        if kind not in events:
+            assert all(hi <= t for k, _, hi in gathered.calls[:i] if k in events), (kind, t)
+            assert all(lo > t for k, lo, _ in gathered.calls[i + 1:] if k in events), (kind, t)
+    assert [c[0] for c in gathered.calls if c[0] == "checkpoint"] == ["checkpoint"] * 2
+    assert gathered.calls[-1][0] == "finish"
+
+
 def test_grade_efficiency_of_a_size_distribution_rises_with_size():
     # field charging: w grows with d (q_s ~ d^2, drag ~ d), so the grade
     # efficiency rises with size (Hinds; the Deutsch-Anderson picture)

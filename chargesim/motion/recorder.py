@@ -40,10 +40,14 @@ class Recorder(Protocol):
         :class:`~chargesim.motion.state.ParticleState` (read, do not keep)."""
 
     def deposits(self, records: dict) -> None:
-        """Particles that landed on a collector during the last step."""
+        """Particles that landed on a collector since the last call, in the
+        order they landed. The loop gathers the records of a few steps
+        (``Simulation.EVENT_STEPS``) and hands them over before each frame,
+        diagnostics row and checkpoint, and before ``finish``."""
 
     def escapes(self, records: dict) -> None:
-        """Particles that left through an outlet during the last step."""
+        """Particles that left through an outlet since the last call (as
+        :meth:`deposits`)."""
 
     def diagnostics(self, step: int, time: float, values: dict) -> None:
         """Scalars over time (counts, energies, efficiency so far), SI."""
@@ -92,18 +96,20 @@ class MemoryRecorder:
     def finish(self, summary):
         self.summary = dict(summary)
 
-    @staticmethod
-    def _join(chunks):
-        if not chunks:
-            return {}
-        return {k: np.concatenate([c[k] for c in chunks]) for k in chunks[0]}
-
     @property
     def all_deposits(self):
         """All deposit records joined into one dict of arrays."""
-        return self._join(self.deposit_records)
+        return join_records(self.deposit_records)
 
     @property
     def all_escapes(self):
         """All escape records joined into one dict of arrays."""
-        return self._join(self.escape_records)
+        return join_records(self.escape_records)
+
+
+def join_records(chunks):
+    """Records (dicts of equal-length arrays with the same keys) joined into
+    one, in order (new arrays); {} for none."""
+    if not chunks:
+        return {}
+    return {k: np.concatenate([c[k] for c in chunks]) for k in chunks[0]}

@@ -171,7 +171,7 @@ class ResultsWriter:
         deflate shrinks float64 frame columns by only ~15 % at 10-20x the
         write time, and each flush recompresses the partly filled chunk of
         every compressed dataset (with the event and diagnostics floats
-        deflated, the writer thread spent ~1.5x the CPU time of a run).
+        deflated, the writer thread spent 1.2-1.5x the CPU time of a run).
     flush_interval : float
         Longest wall-clock time, s, between hand-overs of deposit, escape
         and diagnostics records to the writer thread, which writes and

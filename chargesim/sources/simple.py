@@ -55,7 +55,7 @@ class UniformField(FieldSource):
 
     def _potential(self, pts):
         # -E . (x - x0) in one compiled pass (a diagnostics row evaluates it
-        # at every particle): 0.05 ms for 1e5 points, where numpy took 0.84 ms
+        # at every particle): 0.09 ms for 1e5 points, where numpy took 0.84 ms
         # by columns and 0.27 ms as a matrix-vector product (second reference
         # machine; on the first the product was the slower, 1.5 ms)
         out = np.empty(pts.shape[0])

@@ -344,8 +344,10 @@ def _held_writer(path):
     return w, gate
 
 
-def test_records_are_copied_when_handed_in(tmp_path):
+def test_frames_are_copied_when_handed_in(tmp_path):
     # the thread writes later; what the run changes meanwhile must not show
+    # (a checkpoint's snapshot is handed over instead: Simulation.snapshot
+    # makes fresh arrays, test_snapshot_shares_no_memory_with_the_run)
     p = str(tmp_path / "copy.h5")
     w, gate = _held_writer(p)
     s = ParticleState()
@@ -354,7 +356,6 @@ def test_records_are_copied_when_handed_in(tmp_path):
     snap = {"x": np.arange(4.0)}
     w.checkpoint(snap)
     s.position[:] = 7.0
-    snap["x"][:] = -1.0
     gate.set()
     w.close()
     snap_back, meta = load_checkpoint(p + ".checkpoint")

@@ -195,6 +195,30 @@ def test_snapshot_restore_is_bitwise_identical_to_an_uninterrupted_run():
     assert rec_b.diagnostic_rows[-1] == rec_a.diagnostic_rows[-1]
 
 
+def test_snapshot_shares_no_memory_with_the_run():
+    """A recorder keeps a snapshot as handed over (the results writer saves
+    it later, on its own thread): no array of it may be one the run changes."""
+    sim = _sim(_rich_system())
+    sim.run(steps=20)
+    snap = sim.snapshot()
+    live = list(sim.system.state._data.values()) + [sim._field]
+
+    def arrays(obj):
+        if isinstance(obj, dict):
+            for v in obj.values():
+                yield from arrays(v)
+        elif isinstance(obj, np.ndarray):
+            yield obj
+    found = list(arrays(snap))
+    assert len(found) >= 10  # the particle columns and the field at least
+    for a in found:
+        assert not any(np.shares_memory(a, b) for b in live)
+    before = {k: v.copy() for k, v in snap["particles"].items()}
+    sim.run(steps=5)
+    for k, v in before.items():
+        np.testing.assert_array_equal(snap["particles"][k], v, err_msg=k)
+
+
 def test_events_are_gathered_and_all_handed_over_before_each_checkpoint(monkeypatch):
     """The loop hands a recorder a few steps' deposits and escapes at once: the
     same records in the same order as one call per step, and every record of

@@ -54,7 +54,9 @@ class Recorder(Protocol):
 
     def checkpoint(self, snapshot: dict) -> None:
         """The full state needed to resume bitwise: a nested dict of arrays,
-        scalars and strings (see ``Simulation.snapshot``)."""
+        scalars and strings (see ``Simulation.snapshot``). It is the
+        recorder's to keep: its arrays share no memory with the run, so a
+        recorder may store them, or write them later, as they are."""
 
     def finish(self, summary: dict) -> None:
         """Once, after the last step: the run summary (masses in kg,

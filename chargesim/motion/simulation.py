@@ -694,7 +694,8 @@ class Simulation:
     # -- checkpoints ---------------------------------------------------------------
     def snapshot(self):
         """The full state needed to resume bitwise, as a nested dict of arrays,
-        scalars and strings (the RNG state as a JSON string)."""
+        scalars and strings (the RNG state as a JSON string). Its arrays are
+        fresh copies: the run goes on without changing them."""
         if self._field is None:
             self._refresh()
         sys_ = self.system

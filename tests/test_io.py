@@ -365,6 +365,65 @@ def test_frames_are_copied_when_handed_in(tmp_path):
     np.testing.assert_array_equal(r.frames[0]["position"], np.zeros((5, 3)))
 
 
+def _checkpoint_kinds(path, key):
+    """Node kind of each entry of the dict ``key`` of a checkpoint's snapshot."""
+    with h5py.File(path, "r") as f:
+        top = f["snapshot"]
+        node = top[str(json.loads(top.attrs["keys"]).index(key))]
+        return {k: node[str(i)].attrs["kind"] for i, k in enumerate(json.loads(node.attrs["keys"]))}
+
+
+def test_checkpoint_at_a_frame_keeps_its_columns_as_the_frames_rows(tmp_path):
+    # what a frame of the same step holds bit for bit is not written twice;
+    # everything else (other columns, a bit that differs, other steps) is
+    p = str(tmp_path / "rows.h5")
+    ck = p + ".checkpoint"
+    w = ResultsWriter(p, scenario_text="rows", seed=1)
+    w.start({})
+    rng = np.random.default_rng(11)
+    s = ParticleState()
+    s.add(rng.random((40, 3)), diameter=rng.random(40) * 1e-5, density=1000.0, charge=-1e-16, weight=10.0)
+    w.frame(3, 0.1, s)
+    s.add(rng.random((9, 3)), diameter=2e-6, density=900.0, charge=2e-16)
+    s.velocity[:] = rng.random((49, 3))
+    s.velocity[5, 1] = 0.0
+    w.frame(6, 0.2, s)  # rows 40:89
+    snap = {"step": 6, "time": 0.2, "particles": s.to_dict(), "field": rng.random((49, 3))}
+    snap["particles"]["velocity"][5, 1] = -0.0  # equal to the frame's 0.0, but not the same bits
+    w.checkpoint(snap)
+    w.close()
+    kinds = _checkpoint_kinds(ck, "particles")
+    assert {k for k, v in kinds.items() if v == "rows"} == {"id", "position", "charge", "diameter", "weight",
+                                                            "population"}
+    assert kinds["velocity"] == kinds["density"] == kinds["eps_p"] == kinds["alive"] == "ndarray"
+    with pytest.raises(ValueError, match="results file"):
+        load_checkpoint(ck)  # the rows are elsewhere: say where
+    back, meta = load_checkpoint(ck, results=p + ".partial")
+    assert meta["counts"]["frame_rows"] == 89
+    assert list(back["particles"]) == list(snap["particles"])
+    for k, v in snap["particles"].items():
+        got = back["particles"][k]
+        assert type(got) is type(v) and got.dtype == v.dtype and got.shape == v.shape, k
+        assert np.asarray(got).tobytes() == np.asarray(v).tobytes(), k
+    assert math.copysign(1.0, back["particles"]["velocity"][5, 1]) == -1.0
+    # rows that are not in the file as recorded are refused, not misread
+    other = str(tmp_path / "other.h5")
+    w2 = ResultsWriter(other, scenario_text="rows", seed=1)
+    w2.start({})
+    w2.frame(0, 0.0, s)
+    w2.close()
+    with pytest.raises(ValueError, match="has no rows 40:89 of frames/id"):
+        load_checkpoint(ck, results=other + ".partial")
+
+    # a checkpoint at a step without a frame keeps every column itself
+    w = ResultsWriter(str(tmp_path / "full.h5"), scenario_text="rows", seed=1)
+    w.start({})
+    w.frame(6, 0.2, s)
+    w.checkpoint(dict(snap, step=7))
+    w.close()
+    assert "rows" not in _checkpoint_kinds(str(tmp_path / "full.h5.checkpoint"), "particles").values()
+
+
 def test_writer_thread_error_reaches_the_run(tmp_path):
     p = str(tmp_path / "fail.h5")
     w = ResultsWriter(p, scenario_text="fail", seed=1)

@@ -160,6 +160,12 @@ def test_kill_read_resume_bitwise(tmp_path, reference, kill):
     _prefix(part.escapes, reference.escapes, "escapes")
     _prefix(part.diagnostics, reference.diagnostics, "diagnostics")
 
+    if os.path.exists(out + ".checkpoint"):
+        # checkpoints fall on frames here: the snapshot's particle columns
+        # are kept as the frame's rows, so resume reads them from the file
+        assert _kept_as_rows(out + ".checkpoint") == {"id", "position", "velocity", "charge", "diameter",
+                                                      "weight", "population"}
+
     old = numba.get_num_threads()
     numba.set_num_threads(1)
     try:
@@ -186,6 +192,19 @@ def test_kill_read_resume_bitwise(tmp_path, reference, kill):
     with h5py.File(out, "r") as f:  # the rebuilt file keeps each dataset's filters
         assert f["frames/id"].scaleoffset == 0 and f["deposits/id"].scaleoffset == 0
         assert f["deposits/surface"].compression == "gzip" and f["deposits/surface"].shuffle
+
+
+def _kept_as_rows(checkpoint):
+    """Names of the snapshot's particle columns a checkpoint keeps as rows of the results file."""
+    import json
+
+    import h5py
+
+    with h5py.File(checkpoint, "r") as f:
+        top = f["snapshot"]
+        node = top[str(json.loads(top.attrs["keys"]).index("particles"))]
+        keys = json.loads(node.attrs["keys"])
+        return {k for i, k in enumerate(keys) if node[str(i)].attrs["kind"] == "rows"}
 
 
 def test_reference_run_is_not_trivial(reference):

@@ -59,9 +59,12 @@ Resuming (``resume.py``)
 
 Checkpoints (``checkpoint.py``)
     ``save_checkpoint(path, snapshot, meta=None)`` (atomic: temp + fsync +
-    rename) and ``load_checkpoint(path) -> (snapshot, meta)``: nested dicts,
-    lists, tuples of numpy arrays, numpy scalars, Python ints (any size),
-    floats, bools, str, None round-trip exactly.
+    rename) and ``load_checkpoint(path, results=None) -> (snapshot, meta)``:
+    nested dicts, lists, tuples of numpy arrays, numpy scalars, Python ints
+    (any size), floats, bools, str, None round-trip exactly. The writer keeps
+    a snapshot's particle columns as references to the rows of the frame of
+    the same step when they are bitwise the same (``ResultsRows``);
+    ``results`` names the (partial) results file they are read from.
 
 Reading (``reader.py``)
     ``open_results(path) -> Results``: ``attrs`` (root attributes),

@@ -12,7 +12,13 @@ writer's counters); the snapshot under ``/snapshot``. Each node carries
 attribute ``keys`` and name their children ``0``, ``1``, ...; ``ndarray`` and
 ``npscalar`` are datasets (exact dtype); ``json`` is a Python scalar in the
 attribute ``value`` as JSON text (Python's JSON writes floats by their
-shortest round-trip repr, so they come back bitwise; ints of any size exact).
+shortest round-trip repr, so they come back bitwise; ints of any size exact);
+``rows`` is an array kept elsewhere: rows ``start:stop`` of the dataset named
+in the attribute ``dataset`` of the checkpoint's results file (a
+:class:`ResultsRows` in the snapshot saved), with the attributes ``dtype``
+and ``shape`` it must have. The results writer stores a snapshot's particle
+columns so when a frame of the same step holds them bitwise: a checkpoint of
+1e5 particles then takes 4 MB instead of 12.
 
 Atomicity: the file is written as ``PATH.tmp``, flushed, fsync'ed, then
 ``os.replace``d onto ``PATH`` and the directory fsync'ed, so a reader sees
@@ -24,7 +30,32 @@ import os
 import h5py
 import numpy as np
 
+from .repair import open_for_reading
 from .schema import CHECKPOINT_FORMAT, FORMAT_VERSION
+
+
+class ResultsRows:
+    """An array of a snapshot that the results file already holds, bitwise.
+
+    Parameters
+    ----------
+    dataset : str
+        Path of the dataset in the results file (``"frames/position"``).
+    start, stop : int
+        Its rows ``start:stop`` are the array.
+    dtype : numpy dtype
+        The array's dtype (checked on loading).
+    shape : tuple of int
+        The array's shape (checked on loading).
+    """
+
+    __slots__ = ("dataset", "start", "stop", "dtype", "shape")
+
+    def __init__(self, dataset, start, stop, dtype, shape):
+        self.dataset, self.start, self.stop = str(dataset), int(start), int(stop)
+        self.dtype, self.shape = np.dtype(dtype), tuple(int(k) for k in shape)
+        if not 0 <= self.start <= self.stop or self.shape[:1] != (self.stop - self.start,):
+            raise ValueError(f"rows {self.start}:{self.stop} do not match shape {self.shape}")
 
 
 def _plain(value):
@@ -78,6 +109,13 @@ def _put(group, key, value):
             ds = group.create_dataset(key, data=np.require(value, requirements="C"))  # keeps 0-d
             ds.attrs["kind"] = "ndarray"
         ds.attrs["units"] = "see the run loop's snapshot"
+    elif isinstance(value, ResultsRows):
+        sub = group.create_group(key)
+        sub.attrs["kind"] = "rows"
+        sub.attrs["dataset"] = value.dataset
+        sub.attrs["start"], sub.attrs["stop"] = value.start, value.stop
+        sub.attrs["dtype"] = value.dtype.str
+        sub.attrs["shape"] = json.dumps(value.shape)
     elif isinstance(value, np.generic):
         ds = group.create_dataset(key, data=value)
         ds.attrs["kind"] = "npscalar"
@@ -90,17 +128,22 @@ def _put(group, key, value):
         raise ValueError(f"snapshot entry {group.name}/{key} has unsupported type {type(value).__name__}")
 
 
-def _get(node):
-    kind = node.attrs["kind"]
-    if isinstance(kind, bytes):
-        kind = kind.decode()
+def _text(value):
+    return value.decode() if isinstance(value, bytes) else str(value)
+
+
+def _get(node, rows):
+    kind = _text(node.attrs["kind"])
     if kind == "dict":
         keys = json.loads(node.attrs["keys"])
-        return {k: _get(node[str(i)]) for i, k in enumerate(keys)}
+        return {k: _get(node[str(i)], rows) for i, k in enumerate(keys)}
     if kind in ("list", "tuple"):
         n = json.loads(node.attrs["keys"])
-        items = [_get(node[str(i)]) for i in range(n)]
+        items = [_get(node[str(i)], rows) for i in range(n)]
         return items if kind == "list" else tuple(items)
+    if kind == "rows":
+        return rows(_text(node.attrs["dataset"]), int(node.attrs["start"]), int(node.attrs["stop"]),
+                    np.dtype(_text(node.attrs["dtype"])), tuple(json.loads(node.attrs["shape"])), node.name)
     if kind == "ndarray":
         return np.array(node[()]) if node.shape == () else node[...]
     if kind == "unicode":
@@ -155,13 +198,18 @@ def save_checkpoint(path, snapshot, meta=None):
     _fsync_dir(path)
 
 
-def load_checkpoint(path):
+def load_checkpoint(path, results=None):
     """Read a checkpoint written by :func:`save_checkpoint`.
 
     Parameters
     ----------
     path : str or os.PathLike
         Checkpoint file.
+    results : str or os.PathLike, optional
+        The results file the checkpoint belongs to (its partial file while
+        the run is unfinished): needed when the snapshot keeps arrays there
+        (:class:`ResultsRows`); a file a killed writer left marked open is
+        read too.
 
     Returns
     -------
@@ -173,19 +221,48 @@ def load_checkpoint(path):
     Raises
     ------
     ValueError
-        If the file is not a checkpoint of ours or cannot be read.
+        If the file is not a checkpoint of ours or cannot be read, or if an
+        array it keeps in the results file is not there as recorded (or no
+        results file was given).
     """
     path = os.fspath(path)
     try:
         f = h5py.File(path, "r")
     except OSError as exc:
         raise ValueError(f"{path}: not a readable checkpoint file ({exc})") from None
-    with f:
-        fmt = f.attrs.get("format")
-        if isinstance(fmt, bytes):
-            fmt = fmt.decode()
-        if fmt != CHECKPOINT_FORMAT:
-            raise ValueError(f"{path}: not a chargesim checkpoint (format attribute {fmt!r})")
-        if "snapshot" not in f:
-            raise ValueError(f"{path}: checkpoint has no /snapshot")
-        return _get(f["snapshot"]), json.loads(f.attrs.get("meta", "{}"))
+    opened = []
+
+    def rows(dataset, start, stop, dtype, shape, where):
+        if results is None:
+            raise ValueError(f"{path}: {where} is kept as rows {start}:{stop} of {dataset} in the run's "
+                             f"results file; give that file (results=...)")
+        if not opened:
+            try:
+                opened.append(open_for_reading(os.fspath(results)))
+            except OSError as exc:
+                raise ValueError(f"{results}: cannot read the rows the checkpoint {path} refers to "
+                                 f"({exc})") from None
+        res = opened[0]
+        ds = res.get(dataset)
+        if not isinstance(ds, h5py.Dataset) or ds.shape[0] < stop or ds.dtype != dtype:
+            raise ValueError(f"{results}: has no rows {start}:{stop} of {dataset} ({dtype}) for {where} of "
+                             f"the checkpoint {path}")
+        arr = ds[start:stop]
+        if arr.shape != shape:
+            raise ValueError(f"{results}: rows {start}:{stop} of {dataset} have shape {arr.shape}, the "
+                             f"checkpoint {path} expects {shape} for {where}")
+        return arr
+
+    try:
+        with f:
+            fmt = f.attrs.get("format")
+            if isinstance(fmt, bytes):
+                fmt = fmt.decode()
+            if fmt != CHECKPOINT_FORMAT:
+                raise ValueError(f"{path}: not a chargesim checkpoint (format attribute {fmt!r})")
+            if "snapshot" not in f:
+                raise ValueError(f"{path}: checkpoint has no /snapshot")
+            return _get(f["snapshot"], rows), json.loads(f.attrs.get("meta", "{}"))
+    finally:
+        for res in opened:
+            res.close()

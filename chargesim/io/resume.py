@@ -151,7 +151,7 @@ def open_for_resume(path, *, scenario_text, seed=None, compression="gzip"):
                          f"(use the same scenario file, or remove {partial} to start over)")
     if not complete or not os.path.exists(ckpt):
         return fresh()
-    snapshot, meta = load_checkpoint(ckpt)
+    snapshot, meta = load_checkpoint(ckpt, results=partial)  # its particle columns may be a frame's rows
     if meta.get("scenario_sha256") not in (None, _sha(scenario_text)):
         raise ValueError(f"{ckpt} belongs to a different scenario; refusing to resume")
     _rebuild(partial, meta["counts"])

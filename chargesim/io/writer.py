@@ -55,7 +55,7 @@ from h5py import h5s
 
 from .._version import __version__
 from . import schema as S
-from .checkpoint import save_checkpoint
+from .checkpoint import ResultsRows, save_checkpoint
 
 # Chunk rows. Every flush recompresses the partly filled chunk of each
 # compressed dataset, so the event and diagnostics chunks are kept small:
@@ -217,6 +217,7 @@ class ResultsWriter:
         self._diag_width = 0
         self._info = {}
         self._dsets = {}
+        self._last_frame = None  # (step, first row, columns) of the last frame written
         # events and diagnostics rows wait here (run's thread) and go to the
         # writer thread in one piece with the next frame or checkpoint, or
         # after flush_interval: one queue item per event call cost ~1.7 ms each
@@ -525,6 +526,7 @@ class ResultsWriter:
             self._append(g[name], np.asarray([value]), i)
         self._counts["frame_rows"] = at + k
         self._counts["frames"] = i + 1
+        self._last_frame = (step, at, cols)  # a checkpoint at this step may refer to its rows
         # the frame at once, and the held events with it: one flush for both,
         # which spares most of the flush_interval flushes (each recompresses
         # the partly filled chunks)
@@ -657,7 +659,30 @@ class ResultsWriter:
         self._take_over(held)
         _fsync_path(self.partial_path)  # the records the checkpoint counts are on disk first
         meta = {"counts": dict(self._counts), "scenario_sha256": _sha(self.scenario_text), "saved": _now()}
-        save_checkpoint(self.checkpoint_path, snapshot, meta)
+        save_checkpoint(self.checkpoint_path, self._by_reference(snapshot), meta)
+
+    def _by_reference(self, snapshot):
+        """The snapshot with its particle columns that the frame of its step
+        holds bitwise replaced by references to the frame's rows.
+
+        At the default cadence every checkpoint falls on a frame's step: the
+        columns a frame has are then 8.4 of the 12 MB of a snapshot of 1e5
+        particles, written (and fsync'ed) once instead of twice. Compared
+        bit for bit (0.1 ms per 2.4 MB), so that anything else (a column
+        changed between the calls, -0.0 against 0.0, NaN) is stored in full.
+        """
+        last = self._last_frame
+        particles = snapshot.get("particles")
+        if last is None or not isinstance(particles, dict) or snapshot.get("step") != last[0]:
+            return snapshot
+        _step, at, cols = last
+        kept = dict(particles)
+        for name, col in cols.items():
+            arr = particles.get(name)
+            if (type(arr) is np.ndarray and arr.dtype == col.dtype and arr.shape == col.shape
+                    and arr.flags.c_contiguous and _same_bits(arr, col)):
+                kept[name] = ResultsRows(f"frames/{name}", at, at + col.shape[0], col.dtype, col.shape)
+        return dict(snapshot, particles=kept)
 
     def finish(self, summary):
         """Write ``/final`` and ``/summary``, rename onto the final name, write XDMF.
@@ -769,6 +794,14 @@ def _nbytes(value):
     if isinstance(value, (list, tuple)):
         return sum(_nbytes(v) for v in value)
     return value.nbytes if isinstance(value, np.ndarray) else 0
+
+
+def _same_bits(a, b):
+    """True if two C-contiguous arrays of one dtype and shape hold the same bytes."""
+    if a.dtype.itemsize in (1, 2, 4, 8) and a.size:
+        view = np.dtype(f"u{a.dtype.itemsize}")
+        return bool(np.array_equal(a.reshape(-1).view(view), b.reshape(-1).view(view)))
+    return a.tobytes() == b.tobytes()
 
 
 def _sha(text):

@@ -201,10 +201,8 @@ def _kept_as_rows(checkpoint):
     import h5py
 
     with h5py.File(checkpoint, "r") as f:
-        top = f["snapshot"]
-        node = top[str(json.loads(top.attrs["keys"]).index("particles"))]
-        keys = json.loads(node.attrs["keys"])
-        return {k for i, k in enumerate(keys) if node[str(i)].attrs["kind"] == "rows"}
+        tree = json.loads(f["snapshot"][()])
+    return {k for k, v in tree["particles"].items() if isinstance(v, dict) and v.get("$") == "rows"}
 
 
 def test_reference_run_is_not_trivial(reference):

@@ -6,19 +6,32 @@ integers), floats, bools, strings and None. :func:`load_checkpoint` returns an
 equal structure with the same types and bitwise-equal arrays.
 
 Layout of a checkpoint file (HDF5): root attributes ``format``
-(``"chargesim-checkpoint"``), ``format_version``, ``meta`` (JSON text, the
-writer's counters); the snapshot under ``/snapshot``. Each node carries
-``kind``: ``dict`` / ``list`` / ``tuple`` groups keep their keys in the JSON
-attribute ``keys`` and name their children ``0``, ``1``, ...; ``ndarray`` and
-``npscalar`` are datasets (exact dtype); ``json`` is a Python scalar in the
-attribute ``value`` as JSON text (Python's JSON writes floats by their
-shortest round-trip repr, so they come back bitwise; ints of any size exact);
-``rows`` is an array kept elsewhere: rows ``start:stop`` of the dataset named
-in the attribute ``dataset`` of the checkpoint's results file (a
-:class:`ResultsRows` in the snapshot saved), with the attributes ``dtype``
-and ``shape`` it must have. The results writer stores a snapshot's particle
-columns so when a frame of the same step holds them bitwise: a checkpoint of
-1e5 particles then takes 4 MB instead of 12.
+(``"chargesim-checkpoint"``), ``format_version`` (``CHECKPOINT_VERSION``),
+``meta`` (JSON text, the writer's counters); the dataset ``/snapshot``, one
+JSON text of the whole structure, whose arrays are the datasets
+``/arrays/0``, ``/arrays/1``, ... (exact dtype and shape). In the JSON,
+dicts, lists, str, None, bools, ints (any size) and floats stand for
+themselves (Python's JSON writes floats by their shortest round-trip repr,
+NaN and infinities included, so they come back bitwise); other nodes are
+objects tagged by the key ``"$"``:
+
+- ``{"$": "array", "i": k}``: the array ``/arrays/k``;
+- ``{"$": "npscalar", "i": k}``: the numpy scalar held by the 0-d ``/arrays/k``;
+- ``{"$": "unicode", "i": k, "dtype": "<U5"}``: a numpy str array, stored as
+  its UTF-32 code units (uint32, one more axis);
+- ``{"$": "tuple", "items": [...]}``;
+- ``{"$": "dict", "items": {...}}``: a dict that has a key ``"$"`` itself;
+- ``{"$": "rows", "dataset": ..., "start": ..., "stop": ..., "dtype": ...,
+  "shape": [...]}``: an array kept elsewhere, rows ``start:stop`` of that
+  dataset of the checkpoint's results file (a :class:`ResultsRows` in the
+  snapshot saved). The results writer stores a snapshot's particle columns
+  so when the frame of the same step holds them bitwise: a checkpoint of
+  1e5 particles then takes 4 MB instead of 12.
+
+Why one JSON text rather than a group per node: every HDF5 group and
+attribute costs 50-80 us of a call that holds Python's lock; the snapshot of
+a run had about 20 groups and 80 attributes (6-8 ms a checkpoint, measured),
+now the file holds one dataset per array.
 
 Atomicity: the file is written as ``PATH.tmp``, flushed, fsync'ed, then
 ``os.replace``d onto ``PATH`` and the directory fsync'ed, so a reader sees
@@ -31,7 +44,7 @@ import h5py
 import numpy as np
 
 from .repair import open_for_reading
-from .schema import CHECKPOINT_FORMAT, FORMAT_VERSION
+from .schema import CHECKPOINT_FORMAT, CHECKPOINT_VERSION
 
 
 class ResultsRows:
@@ -58,103 +71,63 @@ class ResultsRows:
             raise ValueError(f"rows {self.start}:{self.stop} do not match shape {self.shape}")
 
 
-def _plain(value):
-    """True for a value that JSON gives back as it was: None, bool, int,
-    float (repr round trip, NaN and inf included), str, and lists and
-    str-keyed dicts of those (a tuple would come back as a list, a numpy
-    scalar as a Python one: both keep their own nodes)."""
-    if value is None or isinstance(value, (bool, int, float, str)):
-        return not isinstance(value, np.generic)
+def _encode(value, arrays, where):
+    """The JSON form of a snapshot node; its arrays are appended to ``arrays``."""
+    if isinstance(value, np.generic) and value.dtype.kind != "U":  # before float: numpy's float64 is one
+        arrays.append(np.asarray(value))
+        return {"$": "npscalar", "i": len(arrays) - 1}
+    if value is None or isinstance(value, (bool, int, float, str)) and not isinstance(value, np.generic):
+        return value
+    if isinstance(value, (np.ndarray, np.str_)):
+        arr = np.asarray(value)
+        if arr.dtype.kind == "O":
+            raise ValueError(f"snapshot entry {where}: object arrays cannot be stored")
+        if arr.dtype.kind == "U":  # as UTF-32 code units, which HDF5 has no type for
+            arrays.append(np.ascontiguousarray(arr).view(np.uint32).reshape(arr.shape + (-1,)))
+            node = {"$": "unicode", "i": len(arrays) - 1, "dtype": arr.dtype.str}
+            return dict(node, scalar=True) if isinstance(value, np.str_) else node
+        arrays.append(arr)
+        return {"$": "array", "i": len(arrays) - 1}
+    if isinstance(value, ResultsRows):
+        return {"$": "rows", "dataset": value.dataset, "start": value.start, "stop": value.stop,
+                "dtype": value.dtype.str, "shape": list(value.shape)}
     if isinstance(value, list):
-        return all(_plain(v) for v in value)
+        return [_encode(v, arrays, f"{where}/{i}") for i, v in enumerate(value)]
+    if isinstance(value, tuple):
+        return {"$": "tuple", "items": [_encode(v, arrays, f"{where}/{i}") for i, v in enumerate(value)]}
     if isinstance(value, dict):
-        return all(isinstance(k, str) and _plain(v) for k, v in value.items())
-    return False
-
-
-def _put(group, key, value):
-    if isinstance(value, dict) and _plain(value):
-        # a dict of plain values (counters, masses, per-surface totals) as
-        # one JSON attribute: every HDF5 group and attribute costs ~0.2 ms
-        # of a call that holds Python's lock, and a checkpoint of a run with
-        # a few surfaces had ~100 of them (17 ms a checkpoint)
-        sub = group.create_group(key)
-        sub.attrs["kind"] = "json"
-        sub.attrs["value"] = json.dumps(value)
-    elif isinstance(value, dict):
-        sub = group.create_group(key)
-        sub.attrs["kind"] = "dict"
-        keys = list(value)
-        for k in keys:
+        for k in value:
             if not isinstance(k, str):
-                raise ValueError(f"snapshot dict keys must be str, got {k!r}")
-        sub.attrs["keys"] = json.dumps(keys)
-        for i, k in enumerate(keys):
-            _put(sub, str(i), value[k])
-    elif isinstance(value, (list, tuple)):
-        sub = group.create_group(key)
-        sub.attrs["kind"] = "list" if isinstance(value, list) else "tuple"
-        sub.attrs["keys"] = json.dumps(len(value))
-        for i, v in enumerate(value):
-            _put(sub, str(i), v)
-    elif isinstance(value, np.ndarray):
-        if value.dtype.kind == "O":
-            raise ValueError(f"snapshot entry {group.name}/{key}: object arrays cannot be stored")
-        if value.dtype.kind == "U":
-            # numpy unicode -> UTF-32 bytes, exact, with the dtype kept
-            ds = group.create_dataset(key, data=value.view(np.uint32).reshape(value.shape + (-1,)))
-            ds.attrs["kind"] = "unicode"
-            ds.attrs["dtype"] = value.dtype.str
-        else:
-            ds = group.create_dataset(key, data=np.require(value, requirements="C"))  # keeps 0-d
-            ds.attrs["kind"] = "ndarray"
-        ds.attrs["units"] = "see the run loop's snapshot"
-    elif isinstance(value, ResultsRows):
-        sub = group.create_group(key)
-        sub.attrs["kind"] = "rows"
-        sub.attrs["dataset"] = value.dataset
-        sub.attrs["start"], sub.attrs["stop"] = value.start, value.stop
-        sub.attrs["dtype"] = value.dtype.str
-        sub.attrs["shape"] = json.dumps(value.shape)
-    elif isinstance(value, np.generic):
-        ds = group.create_dataset(key, data=value)
-        ds.attrs["kind"] = "npscalar"
-        ds.attrs["units"] = "see the run loop's snapshot"
-    elif value is None or isinstance(value, (bool, int, float, str)):
-        sub = group.create_group(key)
-        sub.attrs["kind"] = "json"
-        sub.attrs["value"] = json.dumps(value)
-    else:
-        raise ValueError(f"snapshot entry {group.name}/{key} has unsupported type {type(value).__name__}")
+                raise ValueError(f"snapshot dict keys must be str, got {k!r} in {where}")
+        items = {k: _encode(v, arrays, f"{where}/{k}") for k, v in value.items()}
+        return {"$": "dict", "items": items} if "$" in value else items
+    raise ValueError(f"snapshot entry {where} has unsupported type {type(value).__name__}")
 
 
-def _text(value):
-    return value.decode() if isinstance(value, bytes) else str(value)
-
-
-def _get(node, rows):
-    kind = _text(node.attrs["kind"])
-    if kind == "dict":
-        keys = json.loads(node.attrs["keys"])
-        return {k: _get(node[str(i)], rows) for i, k in enumerate(keys)}
-    if kind in ("list", "tuple"):
-        n = json.loads(node.attrs["keys"])
-        items = [_get(node[str(i)], rows) for i in range(n)]
-        return items if kind == "list" else tuple(items)
-    if kind == "rows":
-        return rows(_text(node.attrs["dataset"]), int(node.attrs["start"]), int(node.attrs["stop"]),
-                    np.dtype(_text(node.attrs["dtype"])), tuple(json.loads(node.attrs["shape"])), node.name)
-    if kind == "ndarray":
-        return np.array(node[()]) if node.shape == () else node[...]
-    if kind == "unicode":
-        raw = node[...]
-        dt = np.dtype(node.attrs["dtype"])
-        return np.ascontiguousarray(raw).view(dt).reshape(raw.shape[:-1])
-    if kind == "npscalar":
-        return node[()]
-    if kind == "json":
-        return json.loads(node.attrs["value"])
-    raise ValueError(f"unknown checkpoint node kind {kind!r} at {node.name}")
+def _decode(node, array, rows):
+    if isinstance(node, list):
+        return [_decode(v, array, rows) for v in node]
+    if not isinstance(node, dict):
+        return node
+    tag = node.get("$")
+    if tag is None:
+        return {k: _decode(v, array, rows) for k, v in node.items()}
+    if tag == "dict":
+        return {k: _decode(v, array, rows) for k, v in node["items"].items()}
+    if tag == "tuple":
+        return tuple(_decode(v, array, rows) for v in node["items"])
+    if tag == "array":
+        return np.asarray(array(node["i"])[...])  # 0-d arrays stay arrays
+    if tag == "npscalar":
+        return array(node["i"])[()]
+    if tag == "unicode":
+        raw = array(node["i"])[...]
+        arr = np.ascontiguousarray(raw).view(np.dtype(node["dtype"])).reshape(raw.shape[:-1])
+        return arr[()] if node.get("scalar") else arr
+    if tag == "rows":
+        return rows(node["dataset"], int(node["start"]), int(node["stop"]), np.dtype(node["dtype"]),
+                    tuple(node["shape"]))
+    raise ValueError(f"unknown snapshot node {tag!r}")
 
 
 def _fsync_dir(path):
@@ -186,11 +159,16 @@ def save_checkpoint(path, snapshot, meta=None):
         raise ValueError(f"snapshot must be a dict, got {type(snapshot).__name__}")
     path = os.fspath(path)
     tmp = path + ".tmp"
+    arrays = []
+    tree = json.dumps(_encode(snapshot, arrays, "snapshot"))
     with h5py.File(tmp, "w") as f:
         f.attrs["format"] = CHECKPOINT_FORMAT
-        f.attrs["format_version"] = FORMAT_VERSION
+        f.attrs["format_version"] = CHECKPOINT_VERSION
         f.attrs["meta"] = json.dumps(meta or {})
-        _put(f, "snapshot", snapshot)
+        f.create_dataset("snapshot", data=tree, dtype=h5py.string_dtype("utf-8"))
+        g = f.create_group("arrays")
+        for i, arr in enumerate(arrays):
+            g.create_dataset(str(i), data=np.require(arr, requirements="C"))
         f.flush()
     with open(tmp, "rb+") as fh:
         os.fsync(fh.fileno())
@@ -232,9 +210,9 @@ def load_checkpoint(path, results=None):
         raise ValueError(f"{path}: not a readable checkpoint file ({exc})") from None
     opened = []
 
-    def rows(dataset, start, stop, dtype, shape, where):
+    def rows(dataset, start, stop, dtype, shape):
         if results is None:
-            raise ValueError(f"{path}: {where} is kept as rows {start}:{stop} of {dataset} in the run's "
+            raise ValueError(f"{path}: the snapshot keeps rows {start}:{stop} of {dataset} in the run's "
                              f"results file; give that file (results=...)")
         if not opened:
             try:
@@ -245,12 +223,12 @@ def load_checkpoint(path, results=None):
         res = opened[0]
         ds = res.get(dataset)
         if not isinstance(ds, h5py.Dataset) or ds.shape[0] < stop or ds.dtype != dtype:
-            raise ValueError(f"{results}: has no rows {start}:{stop} of {dataset} ({dtype}) for {where} of "
-                             f"the checkpoint {path}")
+            raise ValueError(f"{results}: has no rows {start}:{stop} of {dataset} ({dtype}) that the "
+                             f"checkpoint {path} refers to")
         arr = ds[start:stop]
         if arr.shape != shape:
             raise ValueError(f"{results}: rows {start}:{stop} of {dataset} have shape {arr.shape}, the "
-                             f"checkpoint {path} expects {shape} for {where}")
+                             f"checkpoint {path} expects {shape}")
         return arr
 
     try:
@@ -260,9 +238,20 @@ def load_checkpoint(path, results=None):
                 fmt = fmt.decode()
             if fmt != CHECKPOINT_FORMAT:
                 raise ValueError(f"{path}: not a chargesim checkpoint (format attribute {fmt!r})")
-            if "snapshot" not in f:
-                raise ValueError(f"{path}: checkpoint has no /snapshot")
-            return _get(f["snapshot"], rows), json.loads(f.attrs.get("meta", "{}"))
+            ver = f.attrs.get("format_version", b"")
+            ver = ver.decode() if isinstance(ver, bytes) else str(ver)
+            if ver.split(".")[0] != CHECKPOINT_VERSION.split(".")[0] or not isinstance(f.get("snapshot"),
+                                                                                       h5py.Dataset):
+                raise ValueError(f"{path}: checkpoint layout {ver!r} is not readable by this version (reads "
+                                 f"{CHECKPOINT_VERSION.split('.')[0]}.x); resume with the chargesim that made "
+                                 f"it, or start the run over")
+            try:
+                tree = json.loads(f["snapshot"][()])
+                arrays = f["arrays"]
+                snapshot = _decode(tree, lambda i: arrays[str(i)], rows)
+            except (KeyError, TypeError, json.JSONDecodeError) as exc:
+                raise ValueError(f"{path}: damaged checkpoint ({exc!r})") from None
+            return snapshot, json.loads(f.attrs.get("meta", "{}"))
     finally:
         for res in opened:
             res.close()

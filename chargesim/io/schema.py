@@ -11,6 +11,9 @@ FORMAT_NAME = "chargesim-results"
 FORMAT_VERSION = "1.0"
 #: Root attribute ``format`` of a checkpoint file.
 CHECKPOINT_FORMAT = "chargesim-checkpoint"
+#: Root attribute ``format_version`` of a checkpoint file (2: one JSON text
+#: and a dataset per array; 1, a group per node, is no longer read).
+CHECKPOINT_VERSION = "2.0"
 
 #: Suffixes of the files beside the final results file.
 PARTIAL_SUFFIX = ".partial"

@@ -35,7 +35,8 @@ pair's overhead splits into the slowdown of the recorded run's physics steps
 (the writer thread beside them: the part the machine's other load makes
 noisy) and the run's own output work outside its steps (recorder calls,
 diagnostics rows, snapshots: steady); one row per round shows how much the
-rounds differ.
+rounds differ, and a pooled row gives the medians over the chunk pairs of
+all rounds with a bootstrap 95 % interval of the overhead's median.
 
     python benchmarks/bench_io.py            # N = 1e5, whole runs of 200 and 2000 steps, 2 repeats
     python benchmarks/bench_io.py --quick    # N = 2e4, runs of 100 and 1000 steps, 2 repeats
@@ -126,6 +127,14 @@ def interleaved(n, length, chunk, coulomb, path):
     fin = time.perf_counter() - t
     os.remove(path)
     return chunks, fin
+
+
+def _median_interval(values, level=0.95, resamples=4000):
+    """Percentile-bootstrap interval of the median of ``values`` (seeded: the same figures give the same interval)."""
+    values = np.asarray(values, dtype=float)
+    rng = np.random.default_rng(0)
+    meds = np.median(values[rng.integers(0, values.size, (resamples, values.size))], axis=1)
+    return tuple(np.quantile(meds, [(1 - level) / 2, (1 + level) / 2]))
 
 
 class _Timed:
@@ -243,10 +252,13 @@ def main():
         with tempfile.TemporaryDirectory() as tmp:
             for L in lengths:
                 rounds = []
+                pairs = []  # (overhead, steps, own) of every chunk pair of every round
                 for r in range(reps):
                     chunks, f = interleaved(n, L, args.interleave, args.coulomb, os.path.join(tmp, "chunks.h5"))
                     # the first chunk opens the file: its cost is reported apart, as the finish
                     rest = chunks[1:]
+                    pairs += [((c[2] - c[0]) / c[0], (c[3] - c[1]) / c[0], ((c[2] - c[3]) - (c[0] - c[1])) / c[0])
+                              for c in rest]
                     tb = sum(c[0] for c in chunks)
                     rounds.append((len(rest), tb,
                                    med([(c[2] - c[0]) / c[0] for c in rest]),
@@ -261,6 +273,12 @@ def main():
                     print(f"{label if r == 0 else '':<20}{r + 1 if r < reps else 'median':>6}{int(k):>7}{tb:>8.2f}"
                           f"{100 * over:>9.1f}%{100 * steps_over:>7.1f}%{100 * own:>6.1f}%{first:>8.2f}{fin:>8.2f}"
                           f"{100 * whole:>7.1f}%")
+                if pairs and reps > 1:
+                    over, steps_over, own = (np.array(x) for x in zip(*pairs))
+                    lo, hi = _median_interval(over)
+                    print(f"{'':<20}{'pooled':>6}{len(pairs):>7}{'':>8}{100 * np.median(over):>9.1f}%"
+                          f"{100 * np.median(steps_over):>7.1f}%{100 * np.median(own):>6.1f}%"
+                          f"   95 % interval of the overhead {100 * lo:.1f} to {100 * hi:.1f} %")
         print("overhead: median over the chunk pairs (after the first) of the recorded chunk's time against the")
         print("bare chunk's just before it; it splits into steps: the median of the recorded chunk's physics")
         print("steps against the bare chunk's (how much the writer thread slows the steps beside it; the noisy")
@@ -268,7 +286,9 @@ def main():
         print("diagnostics rows, snapshots) less the bare chunk's, both against the bare chunk (the steady part);")
         print("first: extra seconds of the first chunk (the file opened in it); finish: seconds of the writer's")
         print("finish (/final, summary, rename, sidecar); whole: all recorded chunks and the finish against all")
-        print("bare chunks. One row per round, and their medians.")
+        print("bare chunks. One row per round, and their medians; pooled: medians over the chunk pairs of all")
+        print("rounds, with a 95 % interval of the overhead's median (bootstrap over the pairs; pairs a few")
+        print("seconds apart share the machine's load, so the interval is if anything too narrow).")
     print(f"goal: overhead <= 5 % at the default cadence (raw frame data {n * raw_row / 1e6:.1f} MB a frame)")
 
 

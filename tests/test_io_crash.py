@@ -55,6 +55,8 @@ def _drive(out, kill):
     def die():
         os.kill(os.getpid(), signal.SIGKILL)
 
+    resume = kill.startswith("resume,")  # resume a killed run first, then kill it again
+    kill = kill.removeprefix("resume,")
     what, _, arg = kill.partition(":")
     if what == "append":
         n = {"left": int(arg)}
@@ -86,7 +88,16 @@ def _drive(out, kill):
             f.flush()
             die()
         wmod.ResultsWriter._write_summary = _write_summary
-    build().run(t_end=T_END, recorder=ResultsWriter(out, scenario_text=SCENARIO, seed=5))
+    if resume:
+        from chargesim.io import open_for_resume
+
+        writer, snap = open_for_resume(out, scenario_text=SCENARIO, seed=5)
+        sim = build()
+        if snap is not None:
+            sim.restore(snap)
+        sim.run(t_end=T_END, recorder=writer)
+    else:
+        build().run(t_end=T_END, recorder=ResultsWriter(out, scenario_text=SCENARIO, seed=5))
 
 
 def _kill_run(out, kill):
@@ -192,6 +203,42 @@ def test_kill_read_resume_bitwise(tmp_path, reference, kill):
     with h5py.File(out, "r") as f:  # the rebuilt file keeps each dataset's filters
         assert f["frames/id"].scaleoffset == 0 and f["deposits/id"].scaleoffset == 0
         assert f["deposits/surface"].compression == "gzip" and f["deposits/surface"].shuffle
+
+
+@pytest.mark.parametrize("second, step", [("resume,checkpoint:2", 20), ("resume,append:7", 10)])
+def test_killed_again_after_resuming_resumes_bitwise(tmp_path, reference, second, step):
+    # a resumed run killed again: after a checkpoint of its own (whose particle
+    # columns are rows of frames it wrote after the rebuild), or before one
+    # (the first run's checkpoint then refers to rows the rebuilt file kept)
+    import numba
+
+    from chargesim.io import load_checkpoint, open_for_resume, open_results
+
+    out = str(tmp_path / "twice.h5")
+    for kill, at in (("checkpoint:2", 10), (second, step)):  # checkpoints every 10 steps
+        rc, err = _kill_run(out, kill)
+        assert rc == -signal.SIGKILL, err
+        assert os.path.exists(out + ".checkpoint") and not os.path.exists(out)
+        assert _kept_as_rows(out + ".checkpoint") == {"id", "position", "velocity", "charge", "diameter",
+                                                      "weight", "population"}
+        assert load_checkpoint(out + ".checkpoint", results=out + ".partial")[0]["step"] == at
+    old = numba.get_num_threads()
+    numba.set_num_threads(1)
+    try:
+        writer, snap = open_for_resume(out, scenario_text=SCENARIO, seed=5)
+        assert snap is not None
+        sim = build()
+        sim.restore(snap)
+        sim.run(t_end=T_END, recorder=writer)
+    finally:
+        numba.set_num_threads(old)
+    res = open_results(out)
+    assert res.finished
+    for name in ("final", "deposits", "escapes", "diagnostics"):
+        _same(getattr(res, name), getattr(reference, name), name)
+    assert len(res.frames) == len(reference.frames)
+    for k in range(len(res.frames)):
+        _same(res.frames[k], reference.frames[k], f"frame {k}")
 
 
 def _kept_as_rows(checkpoint):

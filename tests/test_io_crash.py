@@ -46,6 +46,19 @@ def build():
     return Simulation(sys_, dt=5e-3, diagnostics_every=1, frame_every=5, checkpoint_every=10)
 
 
+def _resume_and_finish(out):
+    """Resume the killed run at ``out`` from its checkpoint (from the start
+    if it has none) and run it to the end; returns the snapshot resumed from."""
+    from chargesim.io import open_for_resume
+
+    writer, snap = open_for_resume(out, scenario_text=SCENARIO, seed=5)
+    sim = build()
+    if snap is not None:
+        sim.restore(snap)
+    sim.run(t_end=T_END, recorder=writer)
+    return snap
+
+
 def _drive(out, kill):
     """Subprocess body: run with the writer, SIGKILL ourselves at ``kill``."""
     import chargesim.io.checkpoint as ck
@@ -89,13 +102,7 @@ def _drive(out, kill):
             die()
         wmod.ResultsWriter._write_summary = _write_summary
     if resume:
-        from chargesim.io import open_for_resume
-
-        writer, snap = open_for_resume(out, scenario_text=SCENARIO, seed=5)
-        sim = build()
-        if snap is not None:
-            sim.restore(snap)
-        sim.run(t_end=T_END, recorder=writer)
+        _resume_and_finish(out)
     else:
         build().run(t_end=T_END, recorder=ResultsWriter(out, scenario_text=SCENARIO, seed=5))
 
@@ -151,7 +158,7 @@ def _prefix(part, full, what):
 def test_kill_read_resume_bitwise(tmp_path, reference, kill):
     import numba
 
-    from chargesim.io import open_for_resume, open_results
+    from chargesim.io import open_results
 
     out = str(tmp_path / "out.h5")
     rc, err = _kill_run(out, kill)
@@ -180,11 +187,7 @@ def test_kill_read_resume_bitwise(tmp_path, reference, kill):
     old = numba.get_num_threads()
     numba.set_num_threads(1)
     try:
-        writer, snap = open_for_resume(out, scenario_text=SCENARIO, seed=5)
-        sim = build()
-        if snap is not None:
-            sim.restore(snap)
-        sim.run(t_end=T_END, recorder=writer)
+        _resume_and_finish(out)
     finally:
         numba.set_num_threads(old)
     res = open_results(out)
@@ -212,7 +215,7 @@ def test_killed_again_after_resuming_resumes_bitwise(tmp_path, reference, second
     # (the first run's checkpoint then refers to rows the rebuilt file kept)
     import numba
 
-    from chargesim.io import load_checkpoint, open_for_resume, open_results
+    from chargesim.io import load_checkpoint, open_results
 
     out = str(tmp_path / "twice.h5")
     for kill, at in (("checkpoint:2", 10), (second, step)):  # checkpoints every 10 steps
@@ -225,11 +228,7 @@ def test_killed_again_after_resuming_resumes_bitwise(tmp_path, reference, second
     old = numba.get_num_threads()
     numba.set_num_threads(1)
     try:
-        writer, snap = open_for_resume(out, scenario_text=SCENARIO, seed=5)
-        assert snap is not None
-        sim = build()
-        sim.restore(snap)
-        sim.run(t_end=T_END, recorder=writer)
+        assert _resume_and_finish(out) is not None
     finally:
         numba.set_num_threads(old)
     res = open_results(out)

@@ -13,7 +13,9 @@ written before the frame's index row, and readers count a frame (or an
 event) only when all its rows are visible, so a half-written frame is never
 read. Checkpoints go to their own file, atomically (temp + fsync + rename),
 after the partial file is flushed and fsync'ed, so a checkpoint never counts
-a record that is not on disk.
+a record that is not on disk; the particle columns a frame of the same step
+holds bit for bit it keeps as references to that frame's rows, which are on
+disk before it.
 
 All HDF5 work on the partial file and the checkpoints during the run is done
 by one background thread, in the order of the recorder calls. Why (measured

@@ -260,14 +260,12 @@ def main():
                 for r in range(reps):
                     chunks, f = interleaved(n, L, args.interleave, args.coulomb, os.path.join(tmp, "chunks.h5"))
                     # the first chunk opens the file: its cost is reported apart, as the finish
-                    rest = chunks[1:]
-                    pairs += [((c[2] - c[0]) / c[0], (c[3] - c[1]) / c[0], ((c[2] - c[3]) - (c[0] - c[1])) / c[0])
-                              for c in rest]
+                    # per chunk pair: overhead, steps' slowdown, own work, all against the bare chunk
+                    split = [((c[2] - c[0]) / c[0], (c[3] - c[1]) / c[0], ((c[2] - c[3]) - (c[0] - c[1])) / c[0])
+                             for c in chunks[1:]]
+                    pairs += split
                     tb = sum(c[0] for c in chunks)
-                    rounds.append((len(rest), tb,
-                                   med([(c[2] - c[0]) / c[0] for c in rest]),
-                                   med([(c[3] - c[1]) / c[0] for c in rest]),
-                                   med([((c[2] - c[3]) - (c[0] - c[1])) / c[0] for c in rest]),
+                    rounds.append((len(split), tb, *(med(x) for x in zip(*split)),
                                    chunks[0][2] - chunks[0][0], f,
                                    (sum(c[2] for c in chunks) + f - tb) / tb))
                 every = max(1, L // 50)

@@ -25,6 +25,8 @@ import time
 import numpy as np
 import pytest
 
+from chargesim.io.schema import FRAME_SCHEMA
+
 HERE = os.path.dirname(os.path.abspath(__file__))
 ROOT = os.path.dirname(HERE)
 SCENARIO = "invented channel for crash tests\n"
@@ -181,8 +183,7 @@ def test_kill_read_resume_bitwise(tmp_path, reference, kill):
     if os.path.exists(out + ".checkpoint"):
         # checkpoints fall on frames here: the snapshot's particle columns
         # are kept as the frame's rows, so resume reads them from the file
-        assert _kept_as_rows(out + ".checkpoint") == {"id", "position", "velocity", "charge", "diameter",
-                                                      "weight", "population"}
+        assert _kept_as_rows(out + ".checkpoint") == set(FRAME_SCHEMA)
 
     old = numba.get_num_threads()
     numba.set_num_threads(1)
@@ -222,8 +223,7 @@ def test_killed_again_after_resuming_resumes_bitwise(tmp_path, reference, second
         rc, err = _kill_run(out, kill)
         assert rc == -signal.SIGKILL, err
         assert os.path.exists(out + ".checkpoint") and not os.path.exists(out)
-        assert _kept_as_rows(out + ".checkpoint") == {"id", "position", "velocity", "charge", "diameter",
-                                                      "weight", "population"}
+        assert _kept_as_rows(out + ".checkpoint") == set(FRAME_SCHEMA)
         assert load_checkpoint(out + ".checkpoint", results=out + ".partial")[0]["step"] == at
     old = numba.get_num_threads()
     numba.set_num_threads(1)

@@ -29,6 +29,8 @@ snapshot, the writer's to keep) with them, or the held events alone after
 record handed in before it is written, flushed and fsync'ed before the
 checkpoint file is written, and the counts it stores are the thread's own.
 The file's contents depend only on the order of the calls, never on timing.
+In a run with a numba thread pool the thread runs in Linux's idle
+scheduling class (:func:`_yield_to_the_run`).
 An error in the thread is raised by the next call (``finish`` and ``close``
 wait for the thread and raise it too). A SIGKILL loses what is still queued,
 as it loses the events not yet flushed: at most ``_QUEUE_BYTES`` of copies.

@@ -474,34 +474,3 @@ def test_writer_thread_error_stops_later_calls(tmp_path):
     with pytest.raises(OSError, match="disk full"):
         w.frame(1, 0.1, s)
     w.close()  # already reported: closes quietly
-
-
-@pytest.mark.skipif(not hasattr(os, "SCHED_IDLE"), reason="Linux scheduling classes")
-def test_writer_thread_yields_to_a_run_with_a_thread_pool(tmp_path):
-    # a run whose parallel loops use several threads gets cores back at once
-    # from the writer thread (Linux's idle class); a serial run, as sweeps
-    # run their points one per core, keeps the fair share of the normal class
-    # (the classes: sched(7), Linux man-pages)
-    import threading
-
-    import numba
-
-    if numba.config.NUMBA_NUM_THREADS < 2:
-        pytest.skip("needs numba threads >= 2")
-    seen = {}
-
-    def record(threads, key):
-        numba.set_num_threads(threads)
-        w = ResultsWriter(str(tmp_path / f"{key}.h5"), scenario_text="pool", seed=1)
-        w.start({})
-        ran = threading.Event()
-        w._submit(ran.set)  # an item: the thread has set its class before it
-        assert ran.wait(timeout=60)
-        seen[key] = os.sched_getscheduler(w._thread.native_id)
-        w.close()
-
-    for threads, key in ((2, "pool"), (1, "serial")):
-        t = threading.Thread(target=record, args=(threads, key))  # numba's thread count is per thread
-        t.start()
-        t.join()
-    assert seen == {"pool": os.SCHED_IDLE, "serial": os.SCHED_OTHER}

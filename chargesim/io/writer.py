@@ -29,8 +29,9 @@ snapshot, the writer's to keep) with them, or the held events alone after
 record handed in before it is written, flushed and fsync'ed before the
 checkpoint file is written, and the counts it stores are the thread's own.
 The file's contents depend only on the order of the calls, never on timing.
-In a run with a numba thread pool the thread runs in Linux's idle
-scheduling class (:func:`_yield_to_the_run`).
+The thread keeps the normal scheduling class: in Linux's idle class it cost
+the run less on an otherwise idle machine, but on a busy one it got no core
+and the run waited for it (docs/results-format.md).
 An error in the thread is raised by the next call (``finish`` and ``close``
 wait for the thread and raise it too). A SIGKILL loses what is still queued,
 as it loses the events not yet flushed: at most ``_QUEUE_BYTES`` of copies.
@@ -116,45 +117,6 @@ def _compression_kw(compression):
     if compression == "lzf":
         return {"compression": "lzf", "shuffle": True}
     raise ValueError(f"compression must be 'gzip', 'lzf' or None, got {compression!r}")
-
-
-def _run_uses_a_pool():
-    """Whether the calling thread (the run's) runs numba's parallel loops on
-    more than one thread."""
-    import numba  # here: only the decision needs it
-    return numba.get_num_threads() > 1
-
-
-def _yield_to_the_run():
-    """Put the calling thread (the writer's) in Linux's idle scheduling class
-    (``SCHED_IDLE``), where a run with a thread pool has it (see
-    :func:`_run_uses_a_pool`).
-
-    Why: such a run leaves cores idle between its parallel loops, and each
-    loop wakes the pool's threads. A writer thread of the normal class on a
-    pool thread's core keeps that core until its time slice ends, and the
-    whole loop waits for that thread; one of the idle class gives it up at
-    once. Measured (``benchmarks/bench_io.py``'s channel: N = 1e5, 2000
-    steps, two threads on two cores; the run without a recorder, then one
-    with each writer, advanced by turns in chunks of 97 steps, 6 rounds):
-    overhead 6.5 % with the normal class and 4.3 % with the idle class
-    (medians over 120 chunks; per chunk -1.8 %, 95 % interval -3.8 to
-    -0.5 %).
-
-    Why not always: a thread of the idle class runs only on a core no other
-    thread wants, and an unprivileged thread cannot leave the class again. A
-    serial run (numba threads 1, as sweeps run their points, one process per
-    core) keeps its cores busy, so its writer would wait until the queue is
-    full (``_QUEUE_BYTES``) and the run waits for it; there the normal class
-    shares the cores fairly, and leaves no pool waiting. Does nothing where
-    the class is not available."""
-    idle = getattr(os, "SCHED_IDLE", None)
-    if idle is None:
-        return
-    try:
-        os.sched_setscheduler(0, idle, os.sched_param(0))  # 0: the calling thread (Linux)
-    except OSError:
-        pass  # refused (a sandbox): the thread keeps the normal class
 
 
 def _one_name(arr):
@@ -464,8 +426,6 @@ class ResultsWriter:
 
     # -- the writer thread ----------------------------------------------------------
     def _start_thread(self):
-        # in the run's thread: numba's thread count is per thread
-        self._yield = _run_uses_a_pool()
         self._thread = threading.Thread(target=self._work, name=f"chargesim writer {os.path.basename(self.path)}",
                                         daemon=True)  # never keeps the interpreter alive; _LIVE drains it at exit
         _LIVE.add(self)
@@ -483,8 +443,6 @@ class ResultsWriter:
 
     def _work(self):
         """The writer thread: run the queued items in order."""
-        if self._yield:
-            _yield_to_the_run()
         while True:
             item = self._queue.get()
             if item is _STOP:

@@ -16,6 +16,7 @@ Outside reference for the superblock repair: the HDF5 File Format
 Specification (superblock v2/v3 fields; metadata checksums are Bob Jenkins'
 lookup3 hash), checked against checksums the HDF5 library itself wrote.
 """
+import contextlib
 import os
 import signal
 import subprocess
@@ -48,17 +49,42 @@ def build():
     return Simulation(sys_, dt=5e-3, diagnostics_every=1, frame_every=5, checkpoint_every=10)
 
 
+@contextlib.contextmanager
+def _one_thread():
+    """numba's thread count of the reference run (bitwise equality holds for one count)."""
+    import numba
+
+    old = numba.get_num_threads()
+    numba.set_num_threads(1)
+    try:
+        yield
+    finally:
+        numba.set_num_threads(old)
+
+
 def _resume_and_finish(out):
     """Resume the killed run at ``out`` from its checkpoint (from the start
-    if it has none) and run it to the end; returns the snapshot resumed from."""
+    if it has none) and run it to the end with the reference's thread count;
+    returns the snapshot resumed from."""
     from chargesim.io import open_for_resume
 
-    writer, snap = open_for_resume(out, scenario_text=SCENARIO, seed=5)
-    sim = build()
-    if snap is not None:
-        sim.restore(snap)
-    sim.run(t_end=T_END, recorder=writer)
+    with _one_thread():
+        writer, snap = open_for_resume(out, scenario_text=SCENARIO, seed=5)
+        sim = build()
+        if snap is not None:
+            sim.restore(snap)
+        sim.run(t_end=T_END, recorder=writer)
     return snap
+
+
+def _same_run(res, reference):
+    """A finished run recorded exactly what the reference did."""
+    assert res.finished
+    for name in ("final", "deposits", "escapes", "diagnostics"):
+        _same(getattr(res, name), getattr(reference, name), name)
+    assert len(res.frames) == len(reference.frames)
+    for k in range(len(res.frames)):
+        _same(res.frames[k], reference.frames[k], f"frame {k}")
 
 
 def _drive(out, kill):
@@ -127,17 +153,11 @@ def _kill_run(out, kill):
 
 @pytest.fixture(scope="module")
 def reference(tmp_path_factory):
-    import numba
-
     from chargesim.io import ResultsWriter, open_results
 
-    old = numba.get_num_threads()
-    numba.set_num_threads(1)
-    try:
-        path = str(tmp_path_factory.mktemp("ref") / "ref.h5")
+    path = str(tmp_path_factory.mktemp("ref") / "ref.h5")
+    with _one_thread():
         build().run(t_end=T_END, recorder=ResultsWriter(path, scenario_text=SCENARIO, seed=5))
-    finally:
-        numba.set_num_threads(old)
     return open_results(path)
 
 
@@ -158,8 +178,6 @@ def _prefix(part, full, what):
 
 @pytest.mark.parametrize("kill", ["append:9", "append:333", "checkpoint:2", "finish", "time:0.05"])
 def test_kill_read_resume_bitwise(tmp_path, reference, kill):
-    import numba
-
     from chargesim.io import open_results
 
     out = str(tmp_path / "out.h5")
@@ -185,21 +203,10 @@ def test_kill_read_resume_bitwise(tmp_path, reference, kill):
         # are kept as the frame's rows, so resume reads them from the file
         assert _kept_as_rows(out + ".checkpoint") == set(FRAME_SCHEMA)
 
-    old = numba.get_num_threads()
-    numba.set_num_threads(1)
-    try:
-        _resume_and_finish(out)
-    finally:
-        numba.set_num_threads(old)
+    _resume_and_finish(out)
     res = open_results(out)
-    assert res.finished and not os.path.exists(out + ".partial") and not os.path.exists(out + ".checkpoint")
-    _same(res.final, reference.final, "final")
-    _same(res.deposits, reference.deposits, "deposits")
-    _same(res.escapes, reference.escapes, "escapes")
-    _same(res.diagnostics, reference.diagnostics, "diagnostics")
-    assert len(res.frames) == len(reference.frames)
-    for k in range(len(res.frames)):
-        _same(res.frames[k], reference.frames[k], f"frame {k}")
+    assert not os.path.exists(out + ".partial") and not os.path.exists(out + ".checkpoint")
+    _same_run(res, reference)
     for key in ("emitted_mass", "deposited_mass", "escaped_mass", "collection_efficiency"):
         assert res.summary[key] == reference.summary[key], key
     import h5py
@@ -214,8 +221,6 @@ def test_killed_again_after_resuming_resumes_bitwise(tmp_path, reference, second
     # a resumed run killed again: after a checkpoint of its own (whose particle
     # columns are rows of frames it wrote after the rebuild), or before one
     # (the first run's checkpoint then refers to rows the rebuilt file kept)
-    import numba
-
     from chargesim.io import load_checkpoint, open_results
 
     out = str(tmp_path / "twice.h5")
@@ -225,19 +230,8 @@ def test_killed_again_after_resuming_resumes_bitwise(tmp_path, reference, second
         assert os.path.exists(out + ".checkpoint") and not os.path.exists(out)
         assert _kept_as_rows(out + ".checkpoint") == set(FRAME_SCHEMA)
         assert load_checkpoint(out + ".checkpoint", results=out + ".partial")[0]["step"] == at
-    old = numba.get_num_threads()
-    numba.set_num_threads(1)
-    try:
-        assert _resume_and_finish(out) is not None
-    finally:
-        numba.set_num_threads(old)
-    res = open_results(out)
-    assert res.finished
-    for name in ("final", "deposits", "escapes", "diagnostics"):
-        _same(getattr(res, name), getattr(reference, name), name)
-    assert len(res.frames) == len(reference.frames)
-    for k in range(len(res.frames)):
-        _same(res.frames[k], reference.frames[k], f"frame {k}")
+    assert _resume_and_finish(out) is not None
+    _same_run(open_results(out), reference)
 
 
 def _kept_as_rows(checkpoint):

@@ -38,7 +38,11 @@ pair's overhead splits into the slowdown of the recorded run's physics steps
 noisy) and the run's own output work outside its steps (recorder calls,
 diagnostics rows, snapshots: steady); one row per round shows how much the
 rounds differ, and a pooled row gives the medians over the chunk pairs of
-all rounds with a bootstrap 95 % interval of the overhead's median.
+all rounds with a bootstrap 95 % interval of the overhead's median. The
+pairs of one round share the machine's load, so that interval is if
+anything too narrow; a second row gives the median of the rounds' overheads
+with the same interval over the rounds, and the verdict on the 5 % goal
+says "met" only when both intervals lie below it.
 
     python benchmarks/bench_io.py            # N = 1e5, whole runs of 200 and 2000 steps, 2 repeats
     python benchmarks/bench_io.py --quick    # N = 2e4, runs of 100 and 1000 steps, 2 repeats
@@ -283,8 +287,15 @@ def main():
                     print(f"{'':<20}{'pooled':>6}{len(pairs):>7}{'':>8}{100 * np.median(over):>9.1f}%"
                           f"{100 * np.median(steps_over):>7.1f}%{100 * np.median(own):>6.1f}%"
                           f"   95 % interval of the overhead {100 * lo:.1f} to {100 * hi:.1f} %")
-                    verdict = ("met" if hi <= GOAL else "missed" if lo > GOAL else
-                               f"not shown (the interval holds {100 * GOAL:.0f} %)")
+                    # the pairs of a round share the machine's load of those minutes, so the
+                    # pooled interval is if anything too narrow; the rounds are independent
+                    # samples: the same interval over the rounds' medians is the stricter one
+                    by_round = np.array([row[2] for row in rounds])
+                    rlo, rhi = _median_interval(by_round)
+                    print(f"{'':<20}{'rounds':>6}{reps:>7}{'':>8}{100 * np.median(by_round):>9.1f}%"
+                          f"{'':>14}   95 % interval over the rounds {100 * rlo:.1f} to {100 * rhi:.1f} %")
+                    verdict = ("met" if max(hi, rhi) <= GOAL else "missed" if min(lo, rlo) > GOAL else
+                               f"not shown (an interval holds {100 * GOAL:.0f} %)")
                     case = ("space charge on, as the scenario defaults" if args.coulomb else
                             "space charge off, the cheapest step: stricter than the defaults")
                     print(f"{'':<20}{'goal':>6}  overhead <= {100 * GOAL:.0f} % ({case}): {verdict}")
@@ -297,9 +308,10 @@ def main():
         print("finish (/final, summary, rename, sidecar); whole: all recorded chunks and the finish against all")
         print("bare chunks. One row per round, and their medians; pooled: medians over the chunk pairs of all")
         print("rounds, with a 95 % interval of the overhead's median (bootstrap over the pairs; pairs a few")
-        print("seconds apart share the machine's load, so the interval is if anything too narrow).")
+        print("seconds apart share the machine's load, so the interval is if anything too narrow); rounds: the")
+        print("median of the rounds' overheads, with the same interval over the rounds (the stricter one).")
     print(f"goal: overhead <= {100 * GOAL:.0f} % at the default cadence (raw frame data {n * raw_row / 1e6:.1f} MB "
-          f"a frame); met when the pooled interval lies below it")
+          f"a frame); met when both intervals, pooled and over the rounds, lie below it")
 
 
 if __name__ == "__main__":

@@ -290,7 +290,7 @@ def main():
                     # the pairs of a round share the machine's load of those minutes, so the
                     # pooled interval is if anything too narrow; the rounds are independent
                     # samples: the same interval over the rounds' medians is the stricter one
-                    by_round = np.array([row[2] for row in rounds])
+                    by_round = np.array([over for _, _, over, *_ in rounds])
                     rlo, rhi = _median_interval(by_round)
                     print(f"{'':<20}{'rounds':>6}{reps:>7}{'':>8}{100 * np.median(by_round):>9.1f}%"
                           f"{'':>14}   95 % interval over the rounds {100 * rlo:.1f} to {100 * rhi:.1f} %")
